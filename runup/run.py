@@ -1,0 +1,466 @@
+"""The data model that flows through runup: Run, then ConditionedRun.
+
+``Run`` is what an importer returns: metadata plus one tidy long table of samples in
+canonical units (see :mod:`runup.units`).  ``ConditionedRun`` is what
+:func:`runup.conditioning.condition` returns: per probe, order and monotonic speed
+segment, one :class:`Curve` sorted by speed, with the slow-roll-compensated and the
+uncompensated complex vectors side by side, and a record of every correction made.
+
+All classes are frozen dataclasses validated on construction.  Arrays held by them are
+made read-only so that a result cannot be changed behind its provenance.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Literal
+
+import numpy as np
+import pandas as pd
+from numpy.typing import NDArray
+
+from .errors import DataFormatError
+from .units import amplitude_of, phase_lag_deg_of
+
+__all__ = [
+    "SAMPLE_COLUMNS",
+    "Probe",
+    "OperatingSpeeds",
+    "SourceFile",
+    "RunMetadata",
+    "Run",
+    "Segment",
+    "Correction",
+    "SlowRoll",
+    "Curve",
+    "ConditionedRun",
+]
+
+Direction = Literal["startup", "coastdown"]
+Rotation = Literal["ccw", "cw"]
+
+#: Columns of ``Run.samples``, in order, with their dtypes.
+SAMPLE_COLUMNS: dict[str, str] = {
+    "speed_rpm": "float64",
+    "probe": "object",
+    "order": "int64",
+    "amplitude_um_pp": "float64",
+    "phase_lag_deg": "float64",
+    "time_s": "float64",
+    "row": "int64",
+}
+
+
+def _readonly(values: NDArray, dtype: type | str) -> NDArray:
+    arr = np.array(values, dtype=dtype, copy=True)
+    arr.setflags(write=False)
+    return arr
+
+
+def _check_finite_positive(value: float | None, name: str) -> None:
+    if value is not None and not (math.isfinite(value) and value > 0):
+        raise DataFormatError(f"{name} must be a positive number of rpm, got {value!r}")
+
+
+@dataclass(frozen=True)
+class Probe:
+    """One proximity probe.
+
+    Attributes
+    ----------
+    name
+        Identifier used in the data file (``probe`` column or wide-layout prefix).
+    plane
+        Measurement plane (bearing) the probe belongs to; X-Y probes share a plane.
+    angle_deg
+        Mounting angle in degrees from vertical-up, positive counter-clockwise when viewed
+        from the driver end looking toward the driven end; ``None`` when unknown.
+    """
+
+    name: str
+    plane: str | None = None
+    angle_deg: float | None = None
+
+    def __post_init__(self) -> None:
+        if not isinstance(self.name, str) or not self.name.strip():
+            raise DataFormatError(f"probe name must be a non-empty string, got {self.name!r}")
+        if self.angle_deg is not None and not math.isfinite(self.angle_deg):
+            raise DataFormatError(f"probe '{self.name}': angle_deg must be finite")
+
+
+@dataclass(frozen=True)
+class OperatingSpeeds:
+    """Operating speeds of the machine, rpm; each may be unknown (``None``).
+
+    Must satisfy ``min_operating_rpm <= max_continuous_rpm <= trip_rpm`` where given.
+    """
+
+    min_operating_rpm: float | None = None
+    max_continuous_rpm: float | None = None
+    trip_rpm: float | None = None
+
+    def __post_init__(self) -> None:
+        values = [self.min_operating_rpm, self.max_continuous_rpm, self.trip_rpm]
+        names = ["min_operating_rpm", "max_continuous_rpm", "trip_rpm"]
+        for value, name in zip(values, names, strict=True):
+            _check_finite_positive(value, name)
+        given = [(n, v) for n, v in zip(names, values, strict=True) if v is not None]
+        for (n1, v1), (n2, v2) in zip(given, given[1:], strict=False):
+            if v1 > v2:
+                raise DataFormatError(f"{n1} ({v1:g}) must not exceed {n2} ({v2:g})")
+
+
+@dataclass(frozen=True)
+class SourceFile:
+    """An input file and its SHA-256, for provenance."""
+
+    path: str
+    sha256: str
+
+
+@dataclass(frozen=True)
+class RunMetadata:
+    """What is known about a run besides its samples.
+
+    Attributes
+    ----------
+    machine_id, run_id
+        Identifiers; ``run_id`` defaults to the data file's stem at import.
+    direction
+        ``"startup"``, ``"coastdown"`` or ``None`` when the record itself must tell
+        (conditioning labels each monotonic segment from the data in any case).
+    rotation
+        Shaft rotation ``"ccw"`` or ``"cw"`` viewed from the driver end, or ``None``.
+    probes
+        Probe definitions; every probe in the samples has one (the importer adds bare
+        definitions for probes the sidecar does not describe).
+    operating
+        Minimum operating, maximum continuous and trip speeds.
+    sources
+        Files the run was read from.
+    """
+
+    machine_id: str = "unknown"
+    run_id: str = "unknown"
+    direction: Direction | None = None
+    rotation: Rotation | None = None
+    probes: tuple[Probe, ...] = ()
+    operating: OperatingSpeeds = field(default_factory=OperatingSpeeds)
+    sources: tuple[SourceFile, ...] = ()
+
+    def __post_init__(self) -> None:
+        if self.direction not in (None, "startup", "coastdown"):
+            raise DataFormatError(
+                f"direction must be 'startup' or 'coastdown', got {self.direction!r}"
+            )
+        if self.rotation not in (None, "ccw", "cw"):
+            raise DataFormatError(f"rotation must be 'ccw' or 'cw', got {self.rotation!r}")
+        names = [p.name for p in self.probes]
+        dupes = sorted({n for n in names if names.count(n) > 1})
+        if dupes:
+            raise DataFormatError(f"probe defined more than once: {', '.join(dupes)}")
+
+    def probe(self, name: str) -> Probe:
+        """The definition of probe ``name`` (a bare one if it is not described)."""
+        for p in self.probes:
+            if p.name == name:
+                return p
+        return Probe(name)
+
+
+@dataclass(frozen=True)
+class Run:
+    """A run-up or coastdown record as imported: metadata and samples.
+
+    Attributes
+    ----------
+    metadata
+        See :class:`RunMetadata`.
+    samples
+        Long table, one row per probe per sample, columns :data:`SAMPLE_COLUMNS`:
+        ``speed_rpm`` (> 0), ``probe``, ``order`` (harmonic order, >= 1),
+        ``amplitude_um_pp`` (>= 0), ``phase_lag_deg`` (any real value, not necessarily
+        wrapped), ``time_s`` (NaN when the file has none), ``row`` (1-based data row of
+        the source file, for messages).  Rows are in acquisition order (time order when
+        ``time_s`` is given, else file order).  ``NaN`` in speed, amplitude or phase marks
+        a missing value: conditioning drops such rows and records it.
+    """
+
+    metadata: RunMetadata
+    samples: pd.DataFrame
+
+    def __post_init__(self) -> None:
+        df = self.samples
+        missing = [c for c in SAMPLE_COLUMNS if c not in df.columns]
+        if missing:
+            raise DataFormatError(f"Run.samples lacks columns {missing}")
+        df = df.loc[:, list(SAMPLE_COLUMNS)].astype(SAMPLE_COLUMNS).reset_index(drop=True)
+        bad_speed = np.isfinite(df["speed_rpm"]) & (df["speed_rpm"] <= 0)
+        if bad_speed.any():
+            i = int(np.argmax(bad_speed.to_numpy()))
+            raise DataFormatError(
+                f"speed must be positive, found {df['speed_rpm'].iloc[i]:g} rpm",
+                column="speed_rpm",
+                row=int(df["row"].iloc[i]),
+            )
+        bad_amp = np.isfinite(df["amplitude_um_pp"]) & (df["amplitude_um_pp"] < 0)
+        if bad_amp.any():
+            i = int(np.argmax(bad_amp.to_numpy()))
+            raise DataFormatError(
+                f"amplitude must not be negative, found {df['amplitude_um_pp'].iloc[i]:g} um pp",
+                column="amplitude_um_pp",
+                row=int(df["row"].iloc[i]),
+            )
+        if (df["order"] < 1).any():
+            i = int(np.argmax((df["order"] < 1).to_numpy()))
+            raise DataFormatError(
+                "harmonic order must be a whole number >= 1",
+                column="order",
+                row=int(df["row"].iloc[i]),
+            )
+        known = {p.name for p in self.metadata.probes}
+        unknown = sorted(set(df["probe"].unique()) - known)
+        if unknown:
+            extra = tuple(Probe(str(n)) for n in unknown)
+            object.__setattr__(
+                self,
+                "metadata",
+                _replace_probes(self.metadata, self.metadata.probes + extra),
+            )
+        object.__setattr__(self, "samples", df)
+
+    @property
+    def probe_names(self) -> tuple[str, ...]:
+        """Probes present in the samples, in order of first appearance."""
+        return tuple(pd.unique(self.samples["probe"]))
+
+    @property
+    def orders(self) -> tuple[int, ...]:
+        """Harmonic orders present, ascending."""
+        return tuple(sorted(int(o) for o in self.samples["order"].unique()))
+
+    @property
+    def speed_range_rpm(self) -> tuple[float, float]:
+        """Lowest and highest finite speed in the record."""
+        s = self.samples["speed_rpm"].to_numpy()
+        s = s[np.isfinite(s)]
+        return (float(s.min()), float(s.max())) if s.size else (math.nan, math.nan)
+
+
+def _replace_probes(meta: RunMetadata, probes: tuple[Probe, ...]) -> RunMetadata:
+    from dataclasses import replace
+
+    return replace(meta, probes=probes)
+
+
+@dataclass(frozen=True)
+class Segment:
+    """One monotonic speed segment of a record.
+
+    Attributes
+    ----------
+    index
+        0-based position in acquisition order.
+    direction
+        ``"startup"`` (speed rising) or ``"coastdown"`` (falling).
+    start_rpm, end_rpm
+        Speeds at the segment's first and last sample, in acquisition order.
+    n_samples
+        Rows of the run (all probes) in the segment.
+    sweep_rate_rpm_per_s
+        Median absolute rate of speed change, or ``None`` without ``time_s``.
+    """
+
+    index: int
+    direction: Direction
+    start_rpm: float
+    end_rpm: float
+    n_samples: int
+    sweep_rate_rpm_per_s: float | None = None
+
+    @property
+    def label(self) -> str:
+        """Human label such as ``"startup #1"`` (1-based)."""
+        return f"{self.direction} #{self.index + 1}"
+
+
+CorrectionKind = Literal[
+    "missing_dropped",
+    "duplicates_merged",
+    "spike_removed",
+    "segment_dropped",
+    "too_few_points",
+]
+
+
+@dataclass(frozen=True)
+class Correction:
+    """One change conditioning made to the data, so that none is silent.
+
+    Attributes
+    ----------
+    kind
+        What was done.
+    probe, order, segment
+        Where (``None`` when it applies to all probes or before segmentation).
+    speed_rpm
+        Speed of the affected point(s), when one.
+    rows
+        Source rows involved (1-based data rows).
+    detail
+        One sentence for the log.
+    """
+
+    kind: CorrectionKind
+    probe: str | None
+    order: int | None
+    segment: int | None
+    speed_rpm: float | None
+    rows: tuple[int, ...]
+    detail: str
+
+
+@dataclass(frozen=True)
+class SlowRoll:
+    """The slow-roll (runout) vector subtracted from one curve.
+
+    Attributes
+    ----------
+    low_rpm, high_rpm
+        Speed window the vector was averaged over.
+    vector_um_pp
+        Complex mean of the uncompensated response in the window.
+    n_points
+        Points averaged.
+    automatic
+        Whether the window was chosen automatically.
+    """
+
+    low_rpm: float
+    high_rpm: float
+    vector_um_pp: complex
+    n_points: int
+    automatic: bool
+
+    @property
+    def amplitude_um_pp(self) -> float:
+        return float(abs(self.vector_um_pp))
+
+    @property
+    def phase_lag_deg(self) -> float:
+        return float(np.mod(-np.degrees(np.angle(self.vector_um_pp)), 360.0))
+
+
+@dataclass(frozen=True)
+class Curve:
+    """Conditioned response of one probe, one order, one monotonic segment.
+
+    Attributes
+    ----------
+    probe, order
+        Which probe and harmonic order.
+    segment
+        Index of the :class:`Segment`.
+    direction
+        ``"startup"`` or ``"coastdown"`` (copied from the segment).
+    speed_rpm
+        Strictly increasing speeds (coastdowns are reversed for analysis).
+    response_um_pp
+        Complex vectors after slow-roll compensation (equal to the raw vectors when
+        compensation is off).
+    raw_response_um_pp
+        Complex vectors after sorting, merging and despiking, before compensation.
+    time_s
+        Mean acquisition time of each point (NaN without ``time_s``).
+    slow_roll
+        The vector subtracted, or ``None``.
+    """
+
+    probe: str
+    order: int
+    segment: int
+    direction: Direction
+    speed_rpm: NDArray[np.float64]
+    response_um_pp: NDArray[np.complex128]
+    raw_response_um_pp: NDArray[np.complex128]
+    time_s: NDArray[np.float64]
+    slow_roll: SlowRoll | None = None
+
+    def __post_init__(self) -> None:
+        for name, dtype in (
+            ("speed_rpm", np.float64),
+            ("response_um_pp", np.complex128),
+            ("raw_response_um_pp", np.complex128),
+            ("time_s", np.float64),
+        ):
+            object.__setattr__(self, name, _readonly(getattr(self, name), dtype))
+        n = self.speed_rpm.size
+        if any(getattr(self, a).size != n for a in ("response_um_pp", "raw_response_um_pp", "time_s")):
+            raise DataFormatError(f"curve {self.probe}: arrays of different lengths")
+        if n > 1 and not np.all(np.diff(self.speed_rpm) > 0):
+            raise DataFormatError(f"curve {self.probe}: speeds must be strictly increasing")
+
+    @property
+    def amplitude_um_pp(self) -> NDArray[np.float64]:
+        """Compensated amplitude, um pp."""
+        return amplitude_of(self.response_um_pp)
+
+    @property
+    def phase_lag_deg(self) -> NDArray[np.float64]:
+        """Compensated phase lag, degrees, unwrapped along speed."""
+        return phase_lag_deg_of(self.response_um_pp)
+
+    @property
+    def raw_amplitude_um_pp(self) -> NDArray[np.float64]:
+        return amplitude_of(self.raw_response_um_pp)
+
+    @property
+    def raw_phase_lag_deg(self) -> NDArray[np.float64]:
+        return phase_lag_deg_of(self.raw_response_um_pp)
+
+    @property
+    def key(self) -> tuple[str, int, int]:
+        """``(probe, order, segment)``."""
+        return (self.probe, self.order, self.segment)
+
+
+@dataclass(frozen=True)
+class ConditionedRun:
+    """A run after conditioning: curves per probe/order/segment and the correction log.
+
+    Attributes
+    ----------
+    metadata
+        As imported.
+    segments
+        Monotonic speed segments found, in acquisition order.
+    curves
+        One :class:`Curve` per probe, order and segment that kept enough points.
+    corrections
+        Every change made to the data.
+    warnings
+        Sentences for the user (e.g. a slow-roll window overlapping dynamic response).
+    settings
+        The conditioning options used, as ``(name, value)`` pairs for provenance.
+    """
+
+    metadata: RunMetadata
+    segments: tuple[Segment, ...]
+    curves: tuple[Curve, ...]
+    corrections: tuple[Correction, ...] = ()
+    warnings: tuple[str, ...] = ()
+    settings: tuple[tuple[str, str], ...] = ()
+
+    def curve(self, probe: str, *, order: int = 1, segment: int = 0) -> Curve:
+        """The curve of one probe, order and segment; ``KeyError`` if there is none."""
+        for c in self.curves:
+            if c.key == (probe, order, segment):
+                return c
+        raise KeyError(f"no curve for probe {probe!r}, order {order}, segment {segment}")
+
+    def segment(self, index: int) -> Segment:
+        for s in self.segments:
+            if s.index == index:
+                return s
+        raise KeyError(f"no segment {index}")
