@@ -1,0 +1,689 @@
+"""Conditioning: from an imported :class:`~runup.run.Run` to analysis-ready curves.
+
+:func:`condition` applies, in this order and recording every change as a
+:class:`~runup.run.Correction`:
+
+1. drop rows with a missing speed, amplitude or phase;
+2. split the record into monotonic speed segments with hysteresis (:func:`split_segments`);
+3. per probe, order and segment: sort by speed and merge equal speeds (complex mean);
+4. remove isolated spikes (:func:`find_spikes`, a Hampel-type rule on complex vectors);
+5. (phase unwrapping follows speed order; :class:`~runup.run.Curve` unwraps on access);
+6. subtract the slow-roll vector (explicit window or :func:`auto_slow_roll_window`);
+7. drop curves left with fewer than ``min_points`` points.
+
+The rules, their parameters and their sources are described in ``docs/conditioning.md``.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Literal
+
+import numpy as np
+import pandas as pd
+from numpy.typing import ArrayLike, NDArray
+from scipy.ndimage import median_filter
+
+from .errors import DataFormatError
+from .run import ConditionedRun, Correction, Curve, Run, Segment, SlowRoll
+from .units import to_response
+
+__all__ = [
+    "condition",
+    "split_segments",
+    "default_segment_tolerance_rpm",
+    "find_spikes",
+    "auto_slow_roll_window",
+    "SlowRollChoice",
+]
+
+#: Reversal tolerance, part 1: fraction of the record's speed span.
+TOLERANCE_SPAN_FRACTION = 0.02
+#: Reversal tolerance, part 2: multiple of the robust speed-jitter scale.  The range of
+#: N Gaussian samples is about 2*sqrt(2 ln N) sigma, 9.3 sigma for N = 50 000.
+TOLERANCE_JITTER_MULTIPLE = 10.0
+#: Segments spanning less than this fraction of the record's speed range are dropped.
+MIN_SEGMENT_SPAN_FRACTION = 0.05
+#: Half-width (points) of the moving window of the local noise scale in despiking.
+HAMPEL_HALF_WINDOW = 10
+#: A spike deviates from its neighbours' interpolation by more than this many times the
+#: change across the neighbours.  The peak of a single mode sampled at spacing h (in
+#: frequency ratio) scores at most h / (2 zeta), so 2 keeps every mode sampled with at
+#: least one point per two half-power bandwidths.
+ISOLATION_RATIO = 2.0
+#: Median of a Rayleigh variable in units of its per-component standard deviation.
+_RAYLEIGH_MEDIAN = math.sqrt(2.0 * math.log(2.0))
+#: Consistency of the MAD with the standard deviation of a Gaussian (Rousseeuw & Croux 1993).
+_MAD_TO_SIGMA = 1.4826
+
+#: Automatic slow-roll window: at most this fraction of the curve's speed span ...
+SLOW_ROLL_SPAN_FRACTION = 0.2
+#: ... and at most this fraction of the speed of the dynamic peak (4.2 % dynamic, single mode).
+SLOW_ROLL_PEAK_FRACTION = 0.2
+#: A window whose top is above this fraction of the peak-response speed draws a warning.
+SLOW_ROLL_WARN_PEAK_FRACTION = 0.25
+#: The automatic window grows while each vector stays within this fraction of the running mean.
+SLOW_ROLL_TOLERANCE_FRACTION = 0.1
+#: Compensated amplitude at the window top above this fraction of the slow roll: warning.
+SLOW_ROLL_OVERLAP_FRACTION = 0.2
+MIN_SLOW_ROLL_POINTS = 3
+#: Noise multiple for "beyond noise" tests (per-component sigma; Rayleigh tail exp(-k^2/2)).
+NOISE_SIGMAS = 5.0
+#: A dynamic peak counts only if it stands this many noise sigmas above the lowest points.
+PEAK_SIGNIFICANCE_SIGMAS = 8.0
+
+SlowRollOption = Literal["auto", "off"] | tuple[float, float]
+
+
+# --------------------------------------------------------------------------- segments
+def _collapse(speed: NDArray[np.float64]) -> tuple[NDArray[np.float64], NDArray[np.int64]]:
+    """Remove consecutive repeats: (distinct-consecutive values, index of each input in them)."""
+    change = np.empty(speed.size, dtype=bool)
+    change[:1] = True
+    change[1:] = speed[1:] != speed[:-1]
+    return speed[change], np.cumsum(change) - 1
+
+
+def default_segment_tolerance_rpm(speed_rpm: ArrayLike) -> float:
+    """Default reversal tolerance of :func:`split_segments`, rpm.
+
+    ``max(0.02 * span, 10 * sigma_jitter)`` where ``span`` is the peak-to-peak of the
+    finite speeds and ``sigma_jitter = 1.4826 * MAD(second differences) / sqrt(6)``, the
+    robust standard deviation of white speed jitter (a second difference of white noise
+    has variance ``6 sigma**2``; MAD scaling from Rousseeuw & Croux, JASA 88, 1993).
+    Ten sigma exceeds the range of 50 000 Gaussian samples (about 9.3 sigma), so a
+    jittery dwell does not reverse.
+    """
+    s = np.asarray(speed_rpm, dtype=float)
+    s = s[np.isfinite(s)]
+    if s.size == 0:
+        return 0.0
+    c, _ = _collapse(s)
+    jitter = 0.0
+    if c.size >= 3:
+        dd = np.diff(c, 2)
+        jitter = _MAD_TO_SIGMA * float(np.median(np.abs(dd - np.median(dd)))) / math.sqrt(6.0)
+    return max(TOLERANCE_SPAN_FRACTION * float(np.ptp(s)), TOLERANCE_JITTER_MULTIPLE * jitter)
+
+
+def _first_reversal(c: NDArray[np.float64], start: int, sign: int, tol: float) -> int | None:
+    """First index after ``start`` where ``c`` moved back by more than ``tol`` from its
+    running extreme (maximum when ``sign`` is +1, minimum when -1), or ``None``."""
+    width = 1024
+    while True:
+        part = sign * c[start : start + width]
+        hit = np.flatnonzero(np.maximum.accumulate(part) - part > tol)
+        if hit.size:
+            return start + int(hit[0])
+        if start + width >= c.size:
+            return None
+        width *= 4
+
+
+def _segment_ends(c: NDArray[np.float64], tol: float) -> tuple[list[int], int]:
+    """Last index (into ``c``) of every segment but the last, and the first direction."""
+    up = np.flatnonzero(c - np.minimum.accumulate(c) > tol)
+    down = np.flatnonzero(np.maximum.accumulate(c) - c > tol)
+    if up.size == 0 and down.size == 0:
+        return [], int(np.sign(c[-1] - c[0]))
+    first = 1 if down.size == 0 or (up.size and up[0] < down[0]) else -1
+    ends: list[int] = []
+    start, sign = 0, first
+    while (trigger := _first_reversal(c, start, sign, tol)) is not None:
+        part = sign * c[start:trigger]
+        extreme = start + part.size - 1 - int(np.argmax(part[::-1]))  # last occurrence
+        ends.append(extreme)
+        start, sign = extreme, -sign
+    return ends, first
+
+
+def _segment_labels(
+    speed: NDArray[np.float64], tol: float
+) -> tuple[NDArray[np.int64], list[int]]:
+    """Labels per element (-1 for NaN) and the direction sign (+1, -1, 0) per segment."""
+    labels = np.full(speed.size, -1, dtype=np.int64)
+    finite = np.isfinite(speed)
+    if not finite.any():
+        return labels, []
+    c, where = _collapse(speed[finite])
+    ends, first = _segment_ends(c, tol)
+    labels[finite] = np.searchsorted(np.asarray(ends, dtype=np.int64), where, side="left")
+    signs = [first * (-1) ** k for k in range(len(ends) + 1)]
+    return labels, signs
+
+
+def split_segments(
+    speed_rpm: ArrayLike, *, tolerance_rpm: float | None = None
+) -> NDArray[np.int64]:
+    """Label each sample with the monotonic speed segment it belongs to.
+
+    Parameters
+    ----------
+    speed_rpm
+        Speeds in acquisition order, rpm.  Consecutive equal values (interleaved probes
+        of one sample, or a dwell) are one sample for this purpose.
+    tolerance_rpm
+        Hysteresis: a reversal counts only once the speed has moved back from the running
+        extreme (maximum while rising, minimum while falling) by more than this.  Default
+        :func:`default_segment_tolerance_rpm`.
+
+    Returns
+    -------
+    numpy.ndarray of int64
+        Segment label per sample, ``0, 1, ...`` in acquisition order; ``-1`` for NaN.
+        The sample at a turning point ends the segment it closes.
+
+    Raises
+    ------
+    DataFormatError
+        If ``tolerance_rpm`` is negative or not finite.
+    """
+    speed = np.asarray(speed_rpm, dtype=float).ravel()
+    tol = _check_tolerance(speed, tolerance_rpm)
+    return _segment_labels(speed, tol)[0]
+
+
+def _check_tolerance(speed: NDArray[np.float64], tolerance_rpm: float | None) -> float:
+    if tolerance_rpm is None:
+        return default_segment_tolerance_rpm(speed)
+    if not (math.isfinite(tolerance_rpm) and tolerance_rpm >= 0):
+        raise DataFormatError(
+            f"segment tolerance must be a non-negative number of rpm, got {tolerance_rpm!r}"
+        )
+    return float(tolerance_rpm)
+
+
+# --------------------------------------------------------------------------- spikes
+def _interpolation_residual(
+    speed: NDArray[np.float64], x: NDArray[np.complex128]
+) -> NDArray[np.complex128]:
+    """``x_i`` minus the linear interpolation (in speed) of ``x_{i-1}`` and ``x_{i+1}``."""
+    w = (speed[1:-1] - speed[:-2]) / (speed[2:] - speed[:-2])
+    return x[1:-1] - (x[:-2] + w * (x[2:] - x[:-2]))
+
+
+def _floor(x: NDArray[np.complex128]) -> float:
+    return max(1e-9 * float(np.max(np.abs(x), initial=0.0)), np.finfo(float).tiny)
+
+
+def _noise_sigma(speed: NDArray[np.float64], x: NDArray[np.complex128]) -> float:
+    """Robust per-component noise sigma of one point of a curve, um pp.
+
+    From the median of the interpolation residual (Rayleigh median ``sigma*sqrt(2 ln 2)``)
+    and ``Var d = 1.5 Var n`` for evenly spaced points.
+    """
+    if x.size < 3:
+        return _floor(x)
+    d = np.abs(_interpolation_residual(speed, x))
+    return max(float(np.median(d)) / _RAYLEIGH_MEDIAN / math.sqrt(1.5), _floor(x))
+
+
+def find_spikes(
+    speed_rpm: ArrayLike, response_um_pp: ArrayLike, *, threshold: float = 6.0
+) -> tuple[NDArray[np.bool_], NDArray[np.float64]]:
+    """Find isolated spikes in a curve of complex 1X vectors.
+
+    Parameters
+    ----------
+    speed_rpm
+        Strictly increasing speeds, rpm.
+    response_um_pp
+        Complex vectors, um pp (see :func:`runup.units.to_response`).
+    threshold
+        Deviation, in robust noise sigmas, above which an isolated point is a spike.
+
+    Returns
+    -------
+    spike : numpy.ndarray of bool
+        True for the points to remove.  The two endpoints are never flagged.
+    score : numpy.ndarray of float
+        Deviation of each point in noise sigmas (0 at the endpoints).
+
+    Notes
+    -----
+    For an interior point, ``d_i = x_i - [x_{i-1} + w_i (x_{i+1} - x_{i-1})]`` with
+    ``w_i = (s_i - s_{i-1}) / (s_{i+1} - s_{i-1})``.  The noise scale is Hampel's robust
+    scale (Hampel, JASA 69, 1974; median/MAD, Rousseeuw & Croux, JASA 88, 1993) applied to
+    ``|d|``: ``sigma_i = max(median_window(|d|), median_all(|d|)) / sqrt(2 ln 2)`` over a
+    moving window of 21 points.  Point ``i`` is a spike when both
+
+    * ``|d_i| > threshold * sigma_i`` (beyond noise; false rate ``exp(-threshold**2/2)``
+      for complex Gaussian noise), and
+    * ``|d_i| > 2 |x_{i+1} - x_{i-1}|`` (isolated: its neighbours agree with each other).
+
+    The second rule keeps resonance peaks on sparse data: on the modal circle a peak
+    sampled at spacing ``h`` in frequency ratio scores ``h / (2 zeta)``.
+    """
+    s = np.asarray(speed_rpm, dtype=float)
+    x = np.asarray(response_um_pp, dtype=complex)
+    spike = np.zeros(x.size, dtype=bool)
+    score = np.zeros(x.size, dtype=float)
+    if x.size < 3:
+        return spike, score
+    d = np.abs(_interpolation_residual(s, x))
+    size = min(2 * HAMPEL_HALF_WINDOW + 1, d.size)
+    local = median_filter(d, size=size, mode="nearest")
+    sigma = np.maximum(np.maximum(local, np.median(d)) / _RAYLEIGH_MEDIAN, _floor(x))
+    score[1:-1] = d / sigma
+    across = np.abs(x[2:] - x[:-2])
+    spike[1:-1] = (score[1:-1] > threshold) & (d > ISOLATION_RATIO * across)
+    return spike, score
+
+
+# --------------------------------------------------------------------------- slow roll
+@dataclass(frozen=True)
+class SlowRollChoice:
+    """Outcome of :func:`auto_slow_roll_window`.
+
+    Attributes
+    ----------
+    window_rpm
+        ``(low_rpm, high_rpm)`` of the chosen window, or ``None`` when no slow-roll
+        window can be chosen.
+    n_points
+        Points in the window (0 when none).
+    reason
+        Why the window ends where it does, or why there is none (a sentence fragment).
+    """
+
+    window_rpm: tuple[float, float] | None
+    n_points: int
+    reason: str
+
+
+def _peak_speed(
+    speed: NDArray[np.float64], dynamic: NDArray[np.complex128], noise: float
+) -> float | None:
+    """Speed of the largest ``|dynamic|`` if it stands out of the noise, else ``None``."""
+    amp = np.abs(dynamic)
+    i = int(np.argmax(amp))
+    return float(speed[i]) if amp[i] > PEAK_SIGNIFICANCE_SIGMAS * noise else None
+
+
+def auto_slow_roll_window(
+    speed_rpm: ArrayLike,
+    response_um_pp: ArrayLike,
+    *,
+    noise_um_pp: float | None = None,
+    span_fraction: float = SLOW_ROLL_SPAN_FRACTION,
+    peak_fraction: float = SLOW_ROLL_PEAK_FRACTION,
+    tolerance_fraction: float = SLOW_ROLL_TOLERANCE_FRACTION,
+) -> SlowRollChoice:
+    """Choose the slow-roll (runout) window of one curve from its lowest speeds.
+
+    Parameters
+    ----------
+    speed_rpm
+        Strictly increasing speeds, rpm.
+    response_um_pp
+        Uncompensated complex vectors, um pp.
+    noise_um_pp
+        Per-component noise sigma of one point; estimated robustly when ``None``.
+    span_fraction
+        The window stays within the lowest ``span_fraction`` of the curve's speed span.
+    peak_fraction
+        ... and below ``peak_fraction`` times the speed of the dynamic peak, when one
+        stands out of the noise (``|x - mean(x[:3])|`` above 8 sigma).
+    tolerance_fraction
+        The window grows from the lowest speed while each next vector stays within
+        ``max(5 sigma sqrt(1 + 1/k), tolerance_fraction * |m_k|)`` of the mean ``m_k``
+        of the ``k`` points before it.
+
+    Returns
+    -------
+    SlowRollChoice
+        No window (``window_rpm=None``) when fewer than 3 points qualify, in particular
+        when the curve starts above ``peak_fraction`` of its peak-response speed (the
+        record holds no slow-roll data).
+
+    Notes
+    -----
+    For a single mode ``x = A r^2 / (1 - r^2 + 2j zeta r)`` the dynamic part is 1.0 % of
+    ``A`` at ``r = 0.1`` and 4.2 % at ``r = 0.2`` (Rao, *Mechanical Vibrations*, rotating
+    unbalance), hence the 20 % limits.  Slow-roll compensation itself is common practice.
+    """
+    s = np.asarray(speed_rpm, dtype=float)
+    x = np.asarray(response_um_pp, dtype=complex)
+    n = x.size
+    if n < MIN_SLOW_ROLL_POINTS:
+        return SlowRollChoice(None, 0, f"the curve has only {n} point(s)")
+    noise = _noise_sigma(s, x) if noise_um_pp is None else float(noise_um_pp)
+    top = s[0] + span_fraction * (s[-1] - s[0])
+    peak = _peak_speed(s, x - x[:MIN_SLOW_ROLL_POINTS].mean(), noise)
+    if peak is not None and peak_fraction * peak < top:
+        top = peak_fraction * peak
+        if s[0] > top:
+            return SlowRollChoice(
+                None,
+                0,
+                f"the curve starts at {s[0]:.0f} rpm, above {peak_fraction:.0%} of its "
+                f"peak-response speed {peak:.0f} rpm, so it holds no slow-roll data",
+            )
+    m = int(np.searchsorted(s, top, side="right"))
+    if m < MIN_SLOW_ROLL_POINTS:
+        return SlowRollChoice(None, m, f"only {m} point(s) lie below {top:.0f} rpm")
+    k = np.arange(1, m)
+    running_mean = np.cumsum(x[: m - 1]) / k
+    allowed = np.maximum(
+        NOISE_SIGMAS * noise * np.sqrt(1.0 + 1.0 / k), tolerance_fraction * np.abs(running_mean)
+    )
+    off = np.flatnonzero(np.abs(x[1:m] - running_mean) > allowed)
+    if off.size == 0:
+        return SlowRollChoice((float(s[0]), float(s[m - 1])), m, f"limit {top:.0f} rpm reached")
+    k_end = int(off[0]) + 1
+    if k_end < MIN_SLOW_ROLL_POINTS:
+        return SlowRollChoice(
+            None, k_end, f"the response changes from the lowest speed on ({s[k_end]:.0f} rpm)"
+        )
+    return SlowRollChoice(
+        (float(s[0]), float(s[k_end - 1])),
+        k_end,
+        f"the response leaves the slow-roll vector at {s[k_end]:.0f} rpm",
+    )
+
+
+def _overlap_reasons(
+    speed: NDArray[np.float64], raw: NDArray[np.complex128], window: tuple[float, float],
+    vector: complex, noise: float,
+) -> list[str]:
+    """Signs that a slow-roll window overlaps the dynamic response."""
+    reasons = []
+    inside = np.flatnonzero((speed >= window[0]) & (speed <= window[1]))
+    top_amp = abs(raw[inside[-1]] - vector)
+    if top_amp > SLOW_ROLL_OVERLAP_FRACTION * abs(vector) and top_amp > NOISE_SIGMAS * noise:
+        reasons.append(
+            f"the compensated amplitude at its top is {top_amp:.3g} um pp, "
+            f"{top_amp / abs(vector):.0%} of the slow-roll amplitude"
+            if abs(vector) > 0
+            else f"the compensated amplitude at its top is {top_amp:.3g} um pp"
+        )
+    peak = _peak_speed(speed, raw - vector, noise)
+    if peak is not None and window[1] > SLOW_ROLL_WARN_PEAK_FRACTION * peak:
+        reasons.append(
+            f"its top is above {SLOW_ROLL_WARN_PEAK_FRACTION:.0%} of the peak-response "
+            f"speed {peak:.0f} rpm"
+        )
+    return reasons
+
+
+def _slow_roll(
+    speed: NDArray[np.float64],
+    raw: NDArray[np.complex128],
+    option: SlowRollOption,
+    where: str,
+) -> tuple[SlowRoll | None, list[str]]:
+    """The slow-roll vector of one curve and warning sentences."""
+    if option == "off":
+        return None, []
+    noise = _noise_sigma(speed, raw)
+    if option == "auto":
+        choice = auto_slow_roll_window(speed, raw, noise_um_pp=noise)
+        if choice.window_rpm is None:
+            return None, [f"{where}: slow roll not compensated because {choice.reason}; "
+                          "give an explicit slow-roll window if runout matters."]
+        window, automatic = choice.window_rpm, True
+    else:
+        window, automatic = (float(option[0]), float(option[1])), False
+    inside = (speed >= window[0]) & (speed <= window[1])
+    n = int(inside.sum())
+    if n < 2:
+        raise DataFormatError(
+            f"{where}: slow-roll window {window[0]:g}-{window[1]:g} rpm holds {n} point(s), "
+            "at least 2 are needed; widen the window or use slow_roll='auto'"
+        )
+    vector = complex(raw[inside].mean())
+    reasons = _overlap_reasons(speed, raw, window, vector, noise)
+    warn = (
+        [f"{where}: slow-roll window {window[0]:.0f}-{window[1]:.0f} rpm may include dynamic "
+         f"response: {' and '.join(reasons)}."]
+        if reasons
+        else []
+    )
+    return SlowRoll(window[0], window[1], vector, n, automatic), warn
+
+
+# --------------------------------------------------------------------------- condition
+def _check_options(slow_roll: object, spike_threshold: float, min_points: int) -> None:
+    valid = "'auto', 'off' or a (low_rpm, high_rpm) tuple"
+    if isinstance(slow_roll, str):
+        if slow_roll not in ("auto", "off"):
+            raise DataFormatError(f"unknown slow_roll choice {slow_roll!r}; use {valid}")
+    elif isinstance(slow_roll, tuple) and len(slow_roll) == 2:
+        try:
+            low, high = (float(v) for v in slow_roll)
+        except (TypeError, ValueError):
+            low = high = math.nan
+        if not (math.isfinite(low) and math.isfinite(high) and 0 <= low < high):
+            raise DataFormatError(
+                f"slow-roll window must satisfy 0 <= low < high (rpm), got {slow_roll!r}"
+            )
+    else:
+        raise DataFormatError(f"slow_roll must be {valid}, got {slow_roll!r}")
+    if not (math.isfinite(spike_threshold) and spike_threshold > 0):
+        raise DataFormatError(f"spike_threshold must be positive, got {spike_threshold!r}")
+    if isinstance(min_points, bool) or not isinstance(min_points, int) or min_points < 2:
+        raise DataFormatError(f"min_points must be a whole number >= 2, got {min_points!r}")
+
+
+def _rows_text(rows: NDArray[np.int64]) -> str:
+    shown = ", ".join(str(r) for r in rows[:5])
+    return shown + (f" and {rows.size - 5} more" if rows.size > 5 else "")
+
+
+def _missing(df: pd.DataFrame) -> tuple[NDArray[np.bool_], list[Correction]]:
+    bad = (
+        df["speed_rpm"].isna() | df["amplitude_um_pp"].isna() | df["phase_lag_deg"].isna()
+    ).to_numpy()
+    corrections = []
+    for (probe, order), group in df.loc[bad].groupby(["probe", "order"], sort=False):
+        rows = group["row"].to_numpy()
+        corrections.append(Correction(
+            "missing_dropped", str(probe), int(order), None, None, tuple(rows.tolist()),
+            f"probe {probe} order {order}: {rows.size} row(s) with a missing speed, "
+            f"amplitude or phase dropped (rows {_rows_text(rows)}).",
+        ))
+    return bad, corrections
+
+
+def _sample_ids(speed: NDArray[np.float64], time: NDArray[np.float64]) -> NDArray[np.int64]:
+    """One id per sample: rows sharing a time stamp (or, without time, a speed) in a row."""
+    key = time if np.isfinite(time).all() else speed
+    change = np.empty(key.size, dtype=bool)
+    change[:1] = True
+    change[1:] = key[1:] != key[:-1]
+    return np.cumsum(change) - 1
+
+
+def _segments(
+    df: pd.DataFrame, tol: float, min_points: int, default_direction: str
+) -> tuple[NDArray[np.int64], tuple[Segment, ...], list[Correction]]:
+    """Per-row segment labels (-1 = dropped) and the kept segments."""
+    speed = df["speed_rpm"].to_numpy()
+    time = df["time_s"].to_numpy()
+    sid = _sample_ids(speed, time)
+    n_samples = int(sid[-1]) + 1
+    count = np.bincount(sid, minlength=n_samples)
+    s_speed = np.bincount(sid, weights=speed, minlength=n_samples) / count
+    s_time = np.bincount(sid, weights=time, minlength=n_samples) / count
+    s_label, signs = _segment_labels(s_speed, tol)
+    record_range = float(np.ptp(s_speed))
+    row_label = s_label[sid]
+    new_index = np.full(len(signs), -1, dtype=np.int64)
+    segments: list[Segment] = []
+    corrections: list[Correction] = []
+    for k, sign in enumerate(signs):
+        members = np.flatnonzero(s_label == k)
+        sp = s_speed[members]
+        direction = {1: "startup", -1: "coastdown"}.get(sign, default_direction)
+        n_distinct = np.unique(sp).size
+        span = float(np.ptp(sp))
+        if n_distinct < min_points or span < MIN_SEGMENT_SPAN_FRACTION * record_range:
+            rows = df["row"].to_numpy()[row_label == k]
+            corrections.append(Correction(
+                "segment_dropped", None, None, None, None, tuple(rows.tolist()),
+                f"{direction} segment {sp[0]:.0f}-{sp[-1]:.0f} rpm dropped: {n_distinct} "
+                f"distinct speed(s), span {span:.0f} rpm (minimum {min_points} speeds and "
+                f"{MIN_SEGMENT_SPAN_FRACTION:.0%} of the {record_range:.0f} rpm range).",
+            ))
+            continue
+        new_index[k] = len(segments)
+        t = s_time[members]
+        ok = np.isfinite(t)
+        rate = None
+        if ok.sum() >= 2:
+            dt, ds = np.diff(t[ok]), np.diff(sp[ok])
+            pos = dt > 0
+            if pos.any():
+                rate = float(np.median(np.abs(ds[pos] / dt[pos])))
+        segments.append(Segment(
+            len(segments), direction, float(sp[0]), float(sp[-1]),
+            int(np.count_nonzero(row_label == k)), rate,
+        ))
+    return new_index[row_label], tuple(segments), corrections
+
+
+def condition(
+    run: Run,
+    *,
+    slow_roll: SlowRollOption = "auto",
+    despike: bool = True,
+    spike_threshold: float = 6.0,
+    min_points: int = 5,
+    segment_tolerance_rpm: float | None = None,
+) -> ConditionedRun:
+    """Condition a run-up or coastdown record into per-segment curves.
+
+    Parameters
+    ----------
+    run
+        The imported record.
+    slow_roll
+        ``"auto"`` (window per curve, :func:`auto_slow_roll_window`), ``"off"`` (no
+        compensation) or an explicit ``(low_rpm, high_rpm)`` window, inclusive.
+    despike
+        Remove isolated spikes (:func:`find_spikes`).
+    spike_threshold
+        Spike threshold in robust noise sigmas.
+    min_points
+        Minimum distinct speeds of a segment and of a curve.
+    segment_tolerance_rpm
+        Reversal hysteresis of :func:`split_segments`; default
+        :func:`default_segment_tolerance_rpm` of the record.
+
+    Returns
+    -------
+    ConditionedRun
+        Curves sorted by ascending speed (coastdowns reversed), compensated response =
+        raw response minus the slow-roll vector (vector subtraction, common practice).
+
+    Raises
+    ------
+    DataFormatError
+        For invalid options, a record without any valid row, or an explicit slow-roll
+        window holding fewer than 2 points of a curve.
+    """
+    _check_options(slow_roll, spike_threshold, min_points)
+    df = run.samples
+    time_all = df["time_s"].to_numpy()
+    if np.isfinite(time_all).all() and np.any(np.diff(time_all) < 0):
+        df = df.iloc[np.argsort(time_all, kind="stable")].reset_index(drop=True)
+    bad, corrections = _missing(df)
+    valid = df.loc[~bad].reset_index(drop=True)
+    if valid.empty:
+        raise DataFormatError("no row has a speed, amplitude and phase; nothing to condition")
+    tol = _check_tolerance(valid["speed_rpm"].to_numpy(), segment_tolerance_rpm)
+    default_direction = run.metadata.direction or "startup"
+    label, segments, seg_corr = _segments(valid, tol, min_points, default_direction)
+    corrections += seg_corr
+
+    probe_code, probe_names = pd.factorize(valid["probe"])
+    orders = np.sort(valid["order"].unique())
+    order_idx = np.searchsorted(orders, valid["order"].to_numpy())
+    n_seg = max(len(segments), 1)
+    key = (probe_code * orders.size + order_idx) * n_seg + label
+    keep = label >= 0
+    key, speed = key[keep], valid["speed_rpm"].to_numpy()[keep]
+    x = to_response(valid["amplitude_um_pp"].to_numpy()[keep],
+                    valid["phase_lag_deg"].to_numpy()[keep])
+    time, rows = valid["time_s"].to_numpy()[keep], valid["row"].to_numpy()[keep]
+    order = np.lexsort((speed, key))
+    key, speed, x, time, rows = key[order], speed[order], x[order], time[order], rows[order]
+
+    new_point = np.ones(key.size, dtype=bool)
+    new_point[1:] = (key[1:] != key[:-1]) | (speed[1:] != speed[:-1])
+    starts = np.flatnonzero(new_point)
+    counts = np.diff(np.append(starts, key.size))
+    p_key, p_speed = key[starts], speed[starts]
+    p_x = np.add.reduceat(x, starts) / counts if starts.size else x[:0]
+    p_time = np.add.reduceat(time, starts) / counts if starts.size else time[:0]
+    curve_starts = np.flatnonzero(np.diff(p_key, prepend=-1) != 0)
+    curve_ends = np.append(curve_starts[1:], p_key.size)[: curve_starts.size]
+
+    curves: list[Curve] = []
+    warnings: list[str] = []
+    for c0, c1 in zip(curve_starts, curve_ends, strict=True):
+        k = int(p_key[c0])
+        probe = str(probe_names[k // n_seg // orders.size])
+        order_n = int(orders[(k // n_seg) % orders.size])
+        seg = segments[k % n_seg]
+        where = f"probe {probe} order {order_n} {seg.label}"
+        r0 = starts[c0]
+        r1 = starts[c1] if c1 < starts.size else key.size
+        cnt = counts[c0:c1]
+        c_rows = rows[r0:r1]
+        if np.any(cnt > 1):
+            merged = c_rows[np.repeat(cnt > 1, cnt)]
+            corrections.append(Correction(
+                "duplicates_merged", probe, order_n, seg.index, None, tuple(merged.tolist()),
+                f"{where}: {int((cnt - 1).sum())} duplicate-speed row(s) merged into "
+                f"{int((cnt > 1).sum())} point(s) as complex vector means "
+                f"(rows {_rows_text(merged)}).",
+            ))
+        sp, cx, ct = p_speed[c0:c1], p_x[c0:c1], p_time[c0:c1]
+        if despike and sp.size >= 3:
+            spike, score = find_spikes(sp, cx, threshold=spike_threshold)
+            offsets = np.append(0, np.cumsum(cnt))
+            for i in np.flatnonzero(spike):
+                point_rows = c_rows[offsets[i] : offsets[i + 1]]
+                corrections.append(Correction(
+                    "spike_removed", probe, order_n, seg.index, float(sp[i]),
+                    tuple(point_rows.tolist()),
+                    f"{where}: spike at {sp[i]:.1f} rpm removed, {score[i]:.1f} noise "
+                    f"sigmas from its neighbours (rows {_rows_text(point_rows)}).",
+                ))
+            sp, cx, ct = sp[~spike], cx[~spike], ct[~spike]
+        if sp.size < min_points:
+            corrections.append(Correction(
+                "too_few_points", probe, order_n, seg.index, None, tuple(c_rows.tolist()),
+                f"{where}: curve dropped, {sp.size} point(s) left (minimum {min_points}).",
+            ))
+            continue
+        sr, warn = _slow_roll(sp, cx, slow_roll, where)
+        warnings += warn
+        response = cx if sr is None else cx - sr.vector_um_pp
+        curves.append(Curve(probe, order_n, seg.index, seg.direction, sp, response, cx, ct, sr))
+
+    kept = {(c.probe, c.order) for c in curves}
+    dropped = {(c.probe, c.order) for c in corrections if c.kind == "too_few_points"}
+    for probe, order_n in df[["probe", "order"]].drop_duplicates().itertuples(index=False):
+        pair = (str(probe), int(order_n))
+        if pair not in kept and pair not in dropped:
+            corrections.append(Correction(
+                "too_few_points", pair[0], pair[1], None, None, (),
+                f"probe {pair[0]} order {pair[1]}: no curve kept, all its rows were missing "
+                "or in dropped segments.",
+            ))
+    if not curves:
+        warnings.append("No curve kept: every probe and segment had too few valid points.")
+    settings = (
+        ("slow_roll", str(slow_roll)),
+        ("despike", str(despike)),
+        ("spike_threshold", str(spike_threshold)),
+        ("min_points", str(min_points)),
+        ("segment_tolerance_rpm", str(segment_tolerance_rpm)),
+        ("segment_tolerance_rpm_used", f"{tol:.6g}"),
+    )
+    return ConditionedRun(
+        run.metadata, segments, tuple(curves), tuple(corrections), tuple(warnings), settings
+    )

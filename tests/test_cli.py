@@ -1,0 +1,111 @@
+"""The command line, in process (typer's CliRunner): output, JSON, exit codes."""
+
+import json
+from pathlib import Path
+
+import pytest
+from typer.testing import CliRunner
+
+from runup.cli import app
+
+SAMPLES = Path(__file__).resolve().parents[1] / "sample_runs"
+runner = CliRunner()
+
+
+def _truth():
+    return json.loads((SAMPLES / "truth.json").read_text())
+
+
+def test_identify_sample_startup_prints_table_and_caution():
+    """`runup identify` on the bundled startup prints both criticals and the caution."""
+    res = runner.invoke(app, ["identify", str(SAMPLES / "compressor_startup.csv")])
+    assert res.exit_code == 0, res.output
+    assert "Critical speeds" in res.output and "4,3" in res.output and "8,9" in res.output
+    assert "never replace, engineering judgement" in res.output
+
+
+def test_identify_json_has_documented_fields_and_matches_truth(tmp_path):
+    """JSON carries the documented per-critical fields; the sample's truth (synthetic) is found."""
+    out = tmp_path / "res.json"
+    res = runner.invoke(app, ["identify", str(SAMPLES / "compressor_startup.csv"), "--json", str(out)])
+    assert res.exit_code == 0, res.output
+    doc = json.loads(out.read_text())
+    assert doc["schema_version"] == 1
+    crit = doc["criticals"]
+    for c in crit:
+        for key in ("speed_rpm", "natural_speed_rpm", "damping_ratio", "amplification_factor", "probes",
+                    "detail", "flags", "method", "lower_half_power_rpm", "upper_half_power_rpm"):
+            assert key in c
+        assert c["detail"][0]["half_power"] is not None
+    truth = next(r for r in _truth()["runs"] if r["file"] == "compressor_startup.csv")["modes"]
+    found = sorted(c["natural_speed_rpm"] for c in crit)
+    # 1.5 % noise on a dense synthetic run: natural speeds within 0.5 % (issue target)
+    for got, want in zip(found, sorted(m["natural_speed_rpm"] for m in truth), strict=True):
+        assert abs(got / want - 1) < 0.005
+    assert doc["run"]["sources"][0]["sha256"] and len(doc["run"]["sources"]) == 2  # data + sidecar
+
+
+def test_identify_json_to_stdout_and_parquet_sample():
+    """`--json -` writes only JSON to stdout; the Parquet sample (mil 0-p, Hz, lead) is read."""
+    res = runner.invoke(app, ["identify", str(SAMPLES / "pump_startup.parquet"), "--json", "-"])
+    assert res.exit_code == 0, res.output
+    doc = json.loads(res.stdout)
+    assert len(doc["criticals"]) == 1 and "critically_damped" in doc["criticals"][0]["flags"]
+
+
+def test_no_resonance_says_so(tmp_path):
+    """A run without resonance prints that no critical speed was found, exit 0, empty list."""
+    f = tmp_path / "flat.csv"
+    rows = ["speed_rpm,probe,amplitude_um_pp,phase_lag_deg"]
+    rows += [f"{500 + 10 * i},A,{3 + 0.01 * (i % 3)},{40 + 0.2 * (i % 5)}" for i in range(200)]
+    f.write_text("\n".join(rows) + "\n")
+    res = runner.invoke(app, ["identify", str(f), "--json", str(tmp_path / "o.json")])
+    assert res.exit_code == 0, res.output
+    assert "No resonance found" in res.output
+    assert json.loads((tmp_path / "o.json").read_text())["criticals"] == []
+
+
+@pytest.mark.parametrize(
+    ("content", "args", "needle"),
+    [
+        ("speed_rpm,probe,amplitude_um_pp\n1,A,2\n", [], "phase"),  # missing column
+        ("speed_rpm,probe,amplitude_um_pp,phase_lag_deg\n100,A,x,3\n", [], "row 1"),  # non-numeric cell
+        ("speed_rpm,probe,amplitude_um_pp,phase_lag_deg\n100,A,-2,3\n", [], "found -2"),  # negative amplitude
+        ("", [], "empty"),
+        ("speed_rpm,probe,amplitude_furlong_pp,phase_lag_deg\n1,A,2,3\n", [], "amplitude"),  # unknown unit
+        (None, ["--slow-roll", "9:3"], "LOW < HIGH"),
+        (None, ["--slow-roll", "100:200", "--no-slow-roll"], "not both"),
+        (None, ["--column", "nonsense"], "SOURCE=TARGET"),
+    ],
+)
+def test_bad_input_is_one_line_exit_2_no_traceback(tmp_path, content, args, needle):
+    """Every bad-input class gets one line on stderr naming the problem, exit code 2, no traceback."""
+    if content is None:
+        path = SAMPLES / "compressor_startup.csv"
+    else:
+        path = tmp_path / "bad.csv"
+        path.write_text(content)
+    res = runner.invoke(app, ["identify", str(path), *args])
+    assert res.exit_code == 2, res.output
+    err = res.stderr.strip()
+    assert err.startswith("error: ") and "\n" not in err and needle.lower() in err.lower()
+    assert "Traceback" not in res.output
+
+
+def test_missing_file_and_version():
+    """A missing file is a clean error; --version prints the version."""
+    res = runner.invoke(app, ["identify", "no/such/file.csv"])
+    assert res.exit_code == 2 and "not found" in res.stderr
+    res = runner.invoke(app, ["--version"])
+    assert res.exit_code == 0 and res.stdout.startswith("runup ")
+
+
+def test_failed_write_leaves_existing_output_intact(tmp_path):
+    """An output that cannot be written is reported; an existing JSON file is never half-written."""
+    good = tmp_path / "keep.json"
+    good.write_text('{"old": true}\n')
+    target = tmp_path / "dir_as_file"
+    target.write_text("x")
+    res = runner.invoke(app, ["identify", str(SAMPLES / "pump_startup.parquet"), "--json", str(target / "o.json")])
+    assert res.exit_code == 2 and "cannot write" in res.stderr
+    assert json.loads(good.read_text()) == {"old": True}
