@@ -18,11 +18,13 @@ from typing import Literal
 
 import pandas as pd
 
+from .estimators import EstimatorTable
 from .fit.circle import CircleFit
 from .fit.half_power import HalfPower
+from .fit.modal import ModalFit
 from .run import ConditionedRun
 
-__all__ = ["Interval", "ProbeDetail", "Critical", "Identification", "to_frame"]
+__all__ = ["Interval", "ProbeDetail", "SplitBranch", "SplitPair", "Critical", "Identification", "to_frame"]
 
 Method = Literal["modal_fit", "circle_fit", "half_power"]
 
@@ -83,6 +85,48 @@ class ProbeDetail:
 
 
 @dataclass(frozen=True)
+class SplitBranch:
+    """One speed of a split critical.
+
+    Attributes
+    ----------
+    speed_rpm, natural_speed_rpm, damping_ratio, amplification_factor
+        As for :class:`Critical`, for this branch.
+    natural_speed_ci95_rpm
+        95 % interval of the natural speed.
+    dominant_probe
+        Probe with the largest participation in this branch.
+    direction_deg
+        Major-axis direction of the branch's modal orbit on the plane with the largest
+        participation, degrees from vertical-up, positive counter-clockwise viewed from the
+        driver end (``nan`` without an X–Y pair of known angles).
+    """
+
+    speed_rpm: float
+    natural_speed_rpm: float
+    damping_ratio: float
+    amplification_factor: float
+    natural_speed_ci95_rpm: Interval | None
+    dominant_probe: str
+    direction_deg: float
+
+
+@dataclass(frozen=True)
+class SplitPair:
+    """A critical split in two by anisotropic supports: two close modes that the probes of
+    a plane see with different weight (API RP 684, 2nd ed., 2005: split criticals from
+    unequal horizontal and vertical support stiffness — from memory)."""
+
+    lower: SplitBranch
+    upper: SplitBranch
+
+    @property
+    def separation_percent(self) -> float:
+        """Natural-speed separation relative to the lower branch, %."""
+        return 100.0 * (self.upper.natural_speed_rpm / self.lower.natural_speed_rpm - 1.0)
+
+
+@dataclass(frozen=True)
 class Critical:
     """One critical speed seen in a run.
 
@@ -121,6 +165,19 @@ class Critical:
         Per-probe :class:`ProbeDetail`.
     fit_low_rpm, fit_high_rpm, fit_points
         Speed window and number of complex points of the fit.
+    fit
+        The least-squares modal fit the headline came from (shared by the criticals fitted
+        together), or ``None`` for the circle-fit and half-power fall-backs.  Its
+        ``predict(probe, speed_rpm)`` gives the fitted response including residual terms.
+    estimators
+        AF estimators side by side (:mod:`runup.estimators`), or ``None``.
+    split
+        The two branches when the critical is split (flag ``split_critical``); the headline
+        fields are then those of the branch with the larger fitted response.
+
+    For harmonic order ``n > 1`` the speeds are frequencies written in rpm (cycles per
+    minute): a resonance excited by 2X at shaft speed ``N`` is a mode at ``2N``;
+    :attr:`shaft_speed_rpm` gives ``N``.
     """
 
     speed_rpm: float
@@ -145,6 +202,14 @@ class Critical:
     fit_low_rpm: float
     fit_high_rpm: float
     fit_points: int
+    fit: ModalFit | None = None
+    estimators: EstimatorTable | None = None
+    split: SplitPair | None = None
+
+    @property
+    def shaft_speed_rpm(self) -> float:
+        """Shaft speed at which the peak was seen, ``speed_rpm / order``."""
+        return self.speed_rpm / self.order
 
     @property
     def critically_damped(self) -> bool:

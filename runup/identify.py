@@ -1,26 +1,29 @@
 """Identification: conditioned run -> criticals.
 
-For each speed segment and harmonic order:
+For each speed segment and harmonic order (order ``n`` curves are analysed on the
+frequency axis ``n x speed``, so a 2X resonance at shaft speed ``N`` is a mode at ``2N``):
 
 1. resonance candidates on every probe, from amplitude peaks and phase rise, consolidated
-   across probes (:mod:`runup.detect`);
+   across probes (:mod:`runup.detect`); review additions join them;
 2. per probe with an amplitude peak, the API 684 half-power AF on the samples
    (:mod:`runup.fit.half_power`), which also gives a first damping estimate by inverting
    the single-mode AF relation; for phase-only evidence the damping that explains the
-   observed phase rise;
-3. per probe, a Kennedy–Pancu circle fit on ``X / speed`` around the candidate
-   (:mod:`runup.fit.circle`);
-4. one least-squares fit of the modal model to the complex responses of all probes in a
-   window around the candidate (modes whose windows overlap are fitted together), with
-   shared natural speed and damping and per-probe participations and residual terms
-   (:mod:`runup.fit.modal`).  Its natural speed and damping are the headline, with 95 %
-   intervals from the fit covariance; the headline AF is the API half-power AF of the
-   fitted mode (the value half-power gives on the noise-free response of that mode);
-5. a mode the fit cannot confirm (natural speed outside the window, damping at its bound,
-   or a fitted peak response below the detection threshold) falls back to the circle fit,
-   then to half-power, and says so in ``method`` and ``flags``; a phase-only candidate
-   that the fit cannot confirm is rejected, with the reason kept in
-   ``Identification.rejected``.
+   observed phase rise; per probe a Kennedy–Pancu circle fit (:mod:`runup.fit.circle`);
+3. a window of ±5 zeta (8 % to 60 %) around each candidate; candidates whose windows
+   overlap are fitted together: one least-squares fit of the modal model to the complex
+   responses of all probes (dense windows averaged into bins, :mod:`runup.fit.binning`),
+   natural speed and damping shared, participations and residual terms per probe
+   (:mod:`runup.fit.modal`);
+4. a mode the fit cannot confirm (:func:`~runup.fit.selection.mode_is_plausible`,
+   :func:`~runup.fit.selection.mode_is_significant`) is dropped and the rest refitted; a
+   peak candidate then falls back to its circle fit, then to half-power; a phase-only
+   candidate is rejected with the reason kept in ``Identification.rejected`` (a review
+   ``accept`` keeps it);
+5. model-order selection adds modes the residual asks for (:mod:`runup.fit.selection`);
+6. results are assembled (:mod:`runup.assemble`): headline values and intervals, AF
+   estimators side by side, per-probe and major-axis detail; close modes seen with
+   different weight by the probes are merged into a split critical; windows that
+   converged on one mode are reported once; review rejections are applied.
 """
 
 from __future__ import annotations
@@ -28,31 +31,29 @@ from __future__ import annotations
 import math
 import os
 from collections.abc import Sequence
-from dataclasses import dataclass
 
 import numpy as np
 from scipy.optimize import brentq
 
-from .conditioning import condition
-from .critical import CRITICALLY_DAMPED_AF, Critical, Identification, Interval, ProbeDetail
-from .detect import (
-    AMPLITUDE_PROMINENCE_SIGMAS,
-    PHASE_WINDOW,
-    Candidate,
-    ModeCandidate,
-    consolidate,
-    find_candidates,
+from .assemble import (
+    Start,
+    critical_from_fallback,
+    critical_from_fit,
+    deduplicate,
+    merge_splits,
 )
+from .conditioning import condition
+from .critical import Critical, Identification
+from .detect import PHASE_WINDOW, ModeCandidate, consolidate, find_candidates, noise_scale
 from .errors import FitError
+from .fit.binning import bin_curve
 from .fit.circle import CircleFit, circle_fit
 from .fit.half_power import HalfPower, half_power
 from .fit.modal import ModalFit, fit_modes
-from .fit.models import (
-    amplification_factor_from_damping,
-    damping_from_amplification_factor,
-    half_power_speed_ratios,
-    peak_speed_ratio,
-)
+from .fit.models import damping_from_amplification_factor, peak_speed_ratio
+from .fit.selection import mode_is_plausible, mode_is_significant, peak_to_noise, select_modes
+from .geometry import probe_pairs
+from .review import EMPTY_REVIEW, Review
 from .run import ConditionedRun, Curve, Run
 
 __all__ = ["identify", "identify_conditioned", "damping_from_phase_rise"]
@@ -60,8 +61,6 @@ __all__ = ["identify", "identify_conditioned", "damping_from_phase_rise"]
 #: Fallback damping ratio when nothing better is known (typical of fluid-film bearings,
 #: common practice).
 _DEFAULT_DAMPING = 0.05
-#: z-value of a two-sided 95 % interval.
-_Z95 = 1.959963984540054
 #: Least points per probe in a fit window.
 _MIN_WINDOW_POINTS = 10
 
@@ -70,7 +69,7 @@ def damping_from_phase_rise(rise_deg: float, *, window: float = PHASE_WINDOW) ->
     """Damping ratio whose single-mode lag rises by ``rise_deg`` across ``r = 1 -+ window``.
 
     Inverts ``phi(1 + h) - phi(1 - h)`` with ``phi(r) = atan2(2 zeta r, 1 - r^2)`` (the
-    single-mode phase lag, Rao 2011 eq. 3.83); the rise falls monotonically from 180 deg
+    single-mode phase lag, Rao 2011 sec. 3.7); the rise falls monotonically from 180 deg
     at ``zeta -> 0``.  Returns ``nan`` when the rise is outside the attainable range.
     """
 
@@ -89,6 +88,7 @@ def identify(
     *,
     slow_roll: str | tuple[float, float] = "auto",
     despike: bool = True,
+    review: Review | None = None,
 ) -> Identification:
     """Identify the critical speeds of a run.
 
@@ -100,53 +100,74 @@ def identify(
     slow_roll, despike
         Conditioning options (see :func:`runup.conditioning.condition`); ignored for a
         conditioned run.
+    review
+        The engineer's accept/reject/add decisions (:func:`runup.review.read_review`).
 
     Returns
     -------
     Identification
-        Criticals sorted by segment and speed, with per-probe detail.
+        Criticals sorted by segment, order and speed, with per-probe detail.
     """
     if isinstance(source, ConditionedRun):
-        return identify_conditioned(source)
+        return identify_conditioned(source, review=review)
     if not isinstance(source, Run):
         from .io import read_run
 
         source = read_run(source)
-    return identify_conditioned(condition(source, slow_roll=slow_roll, despike=despike))
+    return identify_conditioned(condition(source, slow_roll=slow_roll, despike=despike), review=review)
 
 
-def identify_conditioned(conditioned: ConditionedRun) -> Identification:
+def _as_frequency(curve: Curve) -> Curve:
+    """An order-n curve on the frequency axis ``n x speed`` (rpm-equivalent)."""
+    if curve.order == 1:
+        return curve
+    return Curve(
+        curve.probe, curve.order, curve.segment, curve.direction, curve.speed_rpm * curve.order,
+        curve.response_um_pp, curve.raw_response_um_pp, curve.time_s, curve.slow_roll,
+    )
+
+
+def identify_conditioned(conditioned: ConditionedRun, *, review: Review | None = None) -> Identification:
     """Identify criticals on a conditioned run (steps in the module notes)."""
+    review = review or EMPTY_REVIEW
     criticals: list[Critical] = []
     rejected: list[str] = []
+    pairs = probe_pairs(conditioned.metadata)
     groups: dict[tuple[int, int], list[Curve]] = {}
     for curve in conditioned.curves:
-        groups.setdefault((curve.segment, curve.order), []).append(curve)
+        groups.setdefault((curve.segment, curve.order), []).append(_as_frequency(curve))
     for (segment, order), curves in sorted(groups.items()):
-        candidates = [c for curve in curves for c in find_candidates(curve)]
-        modes = consolidate(candidates)
-        found, notes = _identify_group(curves, modes)
-        criticals.extend(found)
         label = f"segment {segment + 1}, order {order}X"
+        candidates = [c for curve in curves for c in find_candidates(curve)]
+        modes = list(consolidate(candidates))
+        modes = _with_review_additions(modes, review, segment, order)
+        found, notes = _identify_group(curves, modes, review, pairs)
+        kept = []
+        for c in found:
+            entry = next((e for e in review.of("reject") if e.matches(c.speed_rpm, segment=segment, order=order)), None)
+            if entry is None:
+                kept.append(c)
+            else:
+                notes.append(f"critical at {c.speed_rpm:.0f} rpm rejected by review: {entry.reason}")
+        criticals.extend(kept)
         rejected.extend(f"{label}: {n}" for n in notes)
     criticals.sort(key=lambda c: (c.segment, c.order, c.speed_rpm))
-    return Identification(conditioned=conditioned, criticals=tuple(criticals), rejected=tuple(rejected))
+    settings = (("review", review.path or "none"),)
+    return Identification(conditioned=conditioned, criticals=tuple(criticals), rejected=tuple(rejected), settings=settings)
+
+
+def _with_review_additions(modes: list[ModeCandidate], review: Review, segment: int, order: int) -> list[ModeCandidate]:
+    out = list(modes)
+    for entry in review.of("add"):
+        if entry.order != order or (entry.segment is not None and entry.segment != segment):
+            continue
+        if any(entry.matches(m.speed_rpm, segment=segment, order=order) for m in out):
+            continue
+        out.append(ModeCandidate(order=order, segment=segment, speed_rpm=entry.speed_rpm, evidence="review", members=()))
+    return sorted(out, key=lambda m: m.speed_rpm)
 
 
 # ----------------------------------------------------------------------------------------
-@dataclass
-class _Start:
-    """Working state for one mode candidate."""
-
-    mode: ModeCandidate
-    low_rpm: float
-    high_rpm: float
-    damping_guess: float
-    half_powers: dict[str, HalfPower]
-    circles: dict[str, CircleFit]
-    curves: tuple[Curve, ...]
-
-
 def _half_width(damping_ratio: float) -> float:
     """Relative half-width of a fit window: five half-power half-widths, 8 % to 60 %."""
     return float(np.clip(5.0 * damping_ratio, 0.08, 0.6))
@@ -156,7 +177,7 @@ def _index(curve: Curve, speed_rpm: float) -> int:
     return int(np.clip(np.searchsorted(curve.speed_rpm, speed_rpm), 0, curve.speed_rpm.size - 1))
 
 
-def _prepare(curves: Sequence[Curve], mode: ModeCandidate, lower: float, upper: float) -> _Start:
+def _prepare(curves: Sequence[Curve], mode: ModeCandidate, lower: float, upper: float, review: Review) -> Start:
     by_probe = {c.probe: c for c in curves}
     half_powers: dict[str, HalfPower] = {}
     guesses: list[float] = []
@@ -164,11 +185,8 @@ def _prepare(curves: Sequence[Curve], mode: ModeCandidate, lower: float, upper: 
         curve = by_probe[cand.probe]
         if cand.peak_index is not None:
             hp = half_power(
-                curve.speed_rpm,
-                curve.amplitude_um_pp,
-                peak_index=cand.peak_index,
-                search_from=_index(curve, lower),
-                search_to=_index(curve, upper),
+                curve.speed_rpm, curve.amplitude_um_pp, peak_index=cand.peak_index,
+                search_from=_index(curve, lower), search_to=_index(curve, upper),
             )
             half_powers[cand.probe] = hp
             if hp.amplification_factor and "half_power_one_sided" not in hp.flags:
@@ -177,34 +195,41 @@ def _prepare(curves: Sequence[Curve], mode: ModeCandidate, lower: float, upper: 
             z = damping_from_phase_rise(cand.phase_rise_deg)
             if math.isfinite(z):
                 guesses.append(z)
+    reason = None
+    for action, verb in (("accept", "accepted"), ("add", "added")):
+        entry = next(
+            (e for e in review.of(action) if e.matches(mode.speed_rpm, segment=mode.segment, order=mode.order)),  # type: ignore[arg-type]
+            None,
+        )
+        if entry is not None:
+            reason = f"{verb} by review: {entry.reason}"
+            if entry.damping_ratio is not None:
+                guesses = [entry.damping_ratio]
+            break
     zeta = float(np.median(guesses)) if guesses else _DEFAULT_DAMPING
-    width = _half_width(zeta)
-    low = max(mode.speed_rpm * (1.0 - width), lower)
-    high = min(mode.speed_rpm * (1.0 + width), upper)
     circles: dict[str, CircleFit] = {}
     for cand in mode.members:
         curve = by_probe[cand.probe]
         band = max(2.5 * zeta, 0.02)
-        sel = np.abs(curve.speed_rpm / mode.speed_rpm - 1.0) <= band
-        sel &= (curve.speed_rpm >= lower) & (curve.speed_rpm <= upper)
+        inside = (curve.speed_rpm >= lower) & (curve.speed_rpm <= upper)
+        sel = inside & (np.abs(curve.speed_rpm / mode.speed_rpm - 1.0) <= band)
         if sel.sum() < 6:  # widen to the six nearest points within the bounds
-            inside = np.nonzero((curve.speed_rpm >= lower) & (curve.speed_rpm <= upper))[0]
-            nearest = inside[np.argsort(np.abs(curve.speed_rpm[inside] - mode.speed_rpm))[:6]]
+            idx = np.nonzero(inside)[0]
             sel = np.zeros_like(sel)
-            sel[nearest] = True
+            sel[idx[np.argsort(np.abs(curve.speed_rpm[idx] - mode.speed_rpm))[:6]]] = True
         try:
             circles[cand.probe] = circle_fit(
-                curve.speed_rpm[sel],
-                curve.response_um_pp[sel],
-                natural_speed_guess_rpm=mode.speed_rpm,
-                damping_ratio_guess=zeta,
+                curve.speed_rpm[sel], curve.response_um_pp[sel],
+                natural_speed_guess_rpm=mode.speed_rpm, damping_ratio_guess=zeta,
             )
         except FitError:
             pass
-    return _Start(mode, low, high, zeta, half_powers, circles, tuple(curves))
+    width = _half_width(zeta)
+    return Start(mode, mode.speed_rpm * (1 - width), mode.speed_rpm * (1 + width), zeta, half_powers,
+                 circles, tuple(curves), reason)
 
 
-def _initial(start: _Start) -> tuple[float, float]:
+def _initial(start: Start) -> tuple[float, float]:
     good = [c for c in start.circles.values() if start.low_rpm <= c.natural_speed_rpm <= start.high_rpm]
     if good:
         return (
@@ -215,17 +240,24 @@ def _initial(start: _Start) -> tuple[float, float]:
     return (start.mode.speed_rpm / peak_speed_ratio(z), z)
 
 
-def _window(curves: Sequence[Curve], low: float, high: float, n_linear: int) -> list[tuple[str, np.ndarray, np.ndarray]]:
-    out = []
+def _window(curves: Sequence[Curve], low: float, high: float, n_linear: int):
+    """Binned curves in ``[low, high]``: (data, weights, raw per probe, noise scale)."""
+    data, weights, raw, sigmas = [], [], {}, []
     for curve in curves:
         sel = (curve.speed_rpm >= low) & (curve.speed_rpm <= high)
         if sel.sum() >= max(_MIN_WINDOW_POINTS // 2, n_linear + 3):
-            out.append((curve.probe, curve.speed_rpm[sel], curve.response_um_pp[sel]))
-    return out
+            s, x = curve.speed_rpm[sel], curve.response_um_pp[sel]
+            sigmas.append(noise_scale(x))
+            bs, bx, bw = bin_curve(s, x)
+            data.append((curve.probe, bs, bx))
+            weights.append(bw)
+            raw[curve.probe] = (bs, bx)
+    sigma = float(np.median(sigmas)) if sigmas else math.nan
+    return data, weights, raw, sigma
 
 
-def _widen(curves: Sequence[Curve], start: _Start, lower: float, upper: float) -> None:
-    """Widen a window until the best-sampled probe has enough points (bounded by neighbours)."""
+def _widen(curves: Sequence[Curve], start: Start, lower: float, upper: float) -> None:
+    """Widen a window until the best-sampled probe has enough points."""
     for _ in range(8):
         counts = [int(((c.speed_rpm >= start.low_rpm) & (c.speed_rpm <= start.high_rpm)).sum()) for c in curves]
         if max(counts) >= _MIN_WINDOW_POINTS:
@@ -235,39 +267,23 @@ def _widen(curves: Sequence[Curve], start: _Start, lower: float, upper: float) -
         start.high_rpm = min(upper, centre + 1.3 * (start.high_rpm - centre))
 
 
-def _significant(fit: ModalFit, k: int) -> bool:
-    mode = fit.modes[k]
-    peak = max(abs(a) for a in mode.modal_constants_um_pp) / (2.0 * mode.damping_ratio)
-    return peak >= AMPLITUDE_PROMINENCE_SIGMAS * fit.noise_rms_um_pp
-
-
-def _plausible(fit: ModalFit, k: int) -> bool:
-    mode = fit.modes[k]
-    return (
-        fit.low_rpm <= mode.natural_speed_rpm <= fit.high_rpm
-        and 2e-4 < mode.damping_ratio < 0.69
-        and math.isfinite(mode.natural_speed_stderr_rpm)
-    )
-
-
-def _identify_group(curves: Sequence[Curve], modes: Sequence[ModeCandidate]) -> tuple[list[Critical], list[str]]:
+def _identify_group(curves, modes, review: Review, pairs) -> tuple[list[Critical], list[str]]:
     if not modes:
         return [], []
     smin = min(float(c.speed_rpm[0]) for c in curves)
     smax = max(float(c.speed_rpm[-1]) for c in curves)
     speeds = [m.speed_rpm for m in modes]
-    starts: list[_Start] = []
+    starts: list[Start] = []
     for i, mode in enumerate(modes):
         lower = smin if i == 0 else 0.5 * (speeds[i - 1] + speeds[i])
         upper = smax if i == len(modes) - 1 else 0.5 * (speeds[i] + speeds[i + 1])
-        start = _prepare(curves, mode, lower, upper)
+        start = _prepare(curves, mode, lower, upper, review)
+        start.pairs = pairs
         # the fit window may reach past a neighbour's midpoint: neighbours are then fitted jointly
-        start.low_rpm = max(smin, mode.speed_rpm * (1 - float(_half_width(start.damping_guess))))
-        start.high_rpm = min(smax, mode.speed_rpm * (1 + float(_half_width(start.damping_guess))))
+        start.low_rpm, start.high_rpm = max(smin, start.low_rpm), min(smax, start.high_rpm)
         _widen(curves, start, smin, smax)
         starts.append(start)
-    # clusters of overlapping windows
-    clusters: list[list[_Start]] = []
+    clusters: list[list[Start]] = []
     for start in starts:
         if clusters and start.low_rpm <= clusters[-1][-1].high_rpm:
             clusters[-1].append(start)
@@ -279,44 +295,21 @@ def _identify_group(curves: Sequence[Curve], modes: Sequence[ModeCandidate]) -> 
         f, n = _fit_cluster(curves, cluster)
         found.extend(f)
         notes.extend(n)
-    return _deduplicate(found, notes)
+    found = merge_splits(found, pairs)
+    return deduplicate(found, notes), notes
 
 
-def _deduplicate(found: list[Critical], notes: list[str]) -> tuple[list[Critical], list[str]]:
-    """Keep one critical where two windows converged on the same mode.
-
-    Two criticals are the same mode when their natural speeds differ by less than half the
-    half-power bandwidth of the narrower one; the one seen by more probes (then the modal
-    fit, then the narrower interval) is kept.
-    """
-
-    def rank(c: Critical) -> tuple[int, int, float]:
-        ci = c.natural_speed_ci95_rpm
-        return (len(c.probes), c.method == "modal_fit", -(ci.width if ci else math.inf))
-
-    kept: list[Critical] = []
-    for c in sorted(found, key=lambda c: c.natural_speed_rpm):
-        if kept:
-            prev = kept[-1]
-            widths = [
-                x.upper_half_power_rpm - x.lower_half_power_rpm
-                for x in (prev, c)
-                if math.isfinite(x.upper_half_power_rpm - x.lower_half_power_rpm)
-            ]
-            limit = 0.5 * min(widths) if widths else 0.0
-            if abs(c.natural_speed_rpm - prev.natural_speed_rpm) < limit:
-                keep, drop = (c, prev) if rank(c) > rank(prev) else (prev, c)
-                kept[-1] = keep
-                notes.append(
-                    f"candidate near {drop.speed_rpm:.0f} rpm converged on the same mode as the one "
-                    f"at {keep.speed_rpm:.0f} rpm; reported once"
-                )
-                continue
-        kept.append(c)
-    return kept, notes
+def _keep_reason(start: Start, fit: ModalFit, k: int) -> str:
+    if start.review_reason is not None:
+        return f"kept: {start.review_reason}"
+    probes = len(start.mode.members)
+    return (
+        f"kept: candidate with {start.mode.evidence} evidence on {probes} probe(s); fitted peak "
+        f"{peak_to_noise(fit, k):.0f} times the residual RMS (threshold 6)"
+    )
 
 
-def _fit_cluster(curves: Sequence[Curve], cluster: list[_Start]) -> tuple[list[Critical], list[str]]:
+def _fit_cluster(curves: Sequence[Curve], cluster: list[Start]) -> tuple[list[Critical], list[str]]:
     """Fit the modes of overlapping windows together, dropping those the fit cannot confirm."""
     notes: list[str] = []
     found: list[Critical] = []
@@ -324,11 +317,11 @@ def _fit_cluster(curves: Sequence[Curve], cluster: list[_Start]) -> tuple[list[C
     while active:
         low = min(s.low_rpm for s in active)
         high = max(s.high_rpm for s in active)
-        data = _window(curves, low, high, len(active) + 2)
+        data, weights, raw, sigma = _window(curves, low, high, len(active) + 2)
         try:
             if not data:
                 raise FitError("no probe has enough points in the window")
-            fit = fit_modes(data, initial=[_initial(s) for s in active])
+            fit = fit_modes(data, initial=[_initial(s) for s in active], weights=weights)
         except FitError as exc:
             notes.append(f"fit of {len(active)} mode(s) in {low:.0f}-{high:.0f} rpm failed: {exc}")
             break
@@ -336,16 +329,32 @@ def _fit_cluster(curves: Sequence[Curve], cluster: list[_Start]) -> tuple[list[C
         bad = [
             k
             for k, start in enumerate(active)
-            if not (
-                _plausible(fit, k)
-                and _significant(fit, k)
+            if start.review_reason is None
+            and not (
+                mode_is_plausible(fit, k)
+                and mode_is_significant(fit, k)
                 and start.low_rpm <= fit.modes[k].natural_speed_rpm <= start.high_rpm
             )
         ]
         if not bad:
-            found.extend(_critical_from_fit(start, fit, k) for k, start in enumerate(active))
+            selection = select_modes(data, weights, fit, noise_rms_um_pp=sigma)
+            fit = selection.fit
+            base = [k for k in range(len(fit.modes)) if k not in selection.added]
+            for k, start in zip(base, active, strict=True):
+                found.append(critical_from_fit(start, fit, k, reason=_keep_reason(start, fit, k), window=raw))
+            for k, drop in zip(selection.added, selection.bic_drops, strict=True):
+                host = min(active, key=lambda s: abs(s.mode.speed_rpm - fit.modes[k].natural_speed_rpm))
+                extra = Start(
+                    ModeCandidate(host.mode.order, host.mode.segment, fit.modes[k].natural_speed_rpm, "fit", ()),
+                    host.low_rpm, host.high_rpm, fit.modes[k].damping_ratio, {}, {}, host.curves, None, host.pairs,
+                )
+                reason = (
+                    f"added by model-order selection: BIC fell by {drop:.0f} (at least 10), the mode is "
+                    f"significant ({peak_to_noise(fit, k):.0f} times the residual RMS) and stable when the "
+                    "window shrinks by 15 %"
+                )
+                found.append(critical_from_fit(extra, fit, k, reason=reason, window=raw))
             return found, notes
-        # drop one failing candidate (phase-only first, then the lowest) and refit the others
         failing = sorted((active[k] for k in bad), key=lambda s: (s.mode.evidence != "phase", s.mode.speed_rpm))
         drop = failing[0]
         active.remove(drop)
@@ -355,195 +364,15 @@ def _fit_cluster(curves: Sequence[Curve], cluster: list[_Start]) -> tuple[list[C
                 "(not significant above noise, or not inside its window); not reported"
             )
             continue
-        critical = _fallback(drop)
+        critical = critical_from_fallback(drop)
         if critical is None:
             notes.append(f"candidate near {drop.mode.speed_rpm:.0f} rpm could not be fitted; not reported")
         else:
             found.append(critical)
     for start in active:  # the fit itself failed
-        if start.mode.evidence == "phase":
-            notes.append(f"phase-only candidate near {start.mode.speed_rpm:.0f} rpm could not be fitted; not reported")
-            continue
-        critical = _fallback(start)
+        critical = None if start.mode.evidence == "phase" else critical_from_fallback(start)
         if critical is None:
             notes.append(f"candidate near {start.mode.speed_rpm:.0f} rpm could not be fitted; not reported")
         else:
             found.append(critical)
     return found, notes
-
-
-def _log_interval(value: float, stderr: float) -> Interval | None:
-    """95 % interval of a positive parameter fitted on a log scale (as fit_modes does)."""
-    if not (math.isfinite(stderr) and value > 0):
-        return None
-    spread = math.exp(_Z95 * stderr / value)
-    return Interval(value / spread, value * spread)
-
-
-def _headline(zeta: float) -> tuple[float, float, float, float, tuple[str, ...]]:
-    """Peak speed ratio, half-power speed ratios, API AF and flags of one mode."""
-    r_peak = peak_speed_ratio(zeta)
-    r1, r2 = half_power_speed_ratios(zeta)
-    af = amplification_factor_from_damping(zeta)
-    flags: list[str] = []
-    if not math.isfinite(af):
-        if math.isfinite(r1) and math.isfinite(r_peak):
-            af = r_peak / (2.0 * (r_peak - r1))  # the one-sided rule of runup.fit.half_power
-            flags.append("half_power_one_sided")
-        else:
-            flags.append("no_half_power_points")
-    if not af >= CRITICALLY_DAMPED_AF:  # nan included: a mode with no peak is critically damped
-        flags.append("critically_damped")
-    return r_peak, r1, r2, af, tuple(flags)
-
-
-def _details(start: _Start, fit: ModalFit | None, k: int | None) -> tuple[ProbeDetail, ...]:
-    """Per-probe detail: probes with a candidate, and probes the fit gives a clear participation."""
-    members = {c.probe: c for c in start.mode.members}
-    details = []
-    for curve in start.curves:
-        cand: Candidate | None = members.get(curve.probe)
-        participation = complex(math.nan, math.nan)
-        if fit is not None and k is not None and curve.probe in fit.probes:
-            participation = fit.modes[k].modal_constants_um_pp[fit.probes.index(curve.probe)]
-        if cand is None:
-            if not math.isfinite(abs(participation)) or fit is None or k is None:
-                continue
-            peak = abs(participation) / (2 * fit.modes[k].damping_ratio)
-            if peak < AMPLITUDE_PROMINENCE_SIGMAS * fit.noise_rms_um_pp:
-                continue
-        sel = (curve.speed_rpm >= start.low_rpm) & (curve.speed_rpm <= start.high_rpm)
-        idx = np.nonzero(sel)[0]
-        j = int(idx[np.argmax(curve.amplitude_um_pp[idx])]) if idx.size else 0
-        hp = start.half_powers.get(curve.probe)
-        details.append(
-            ProbeDetail(
-                probe=curve.probe,
-                evidence=cand.evidence if cand else "fit",
-                peak_speed_rpm=hp.peak_speed_rpm if hp else float(curve.speed_rpm[j]),
-                peak_amplitude_um_pp=hp.peak_amplitude_um_pp if hp else float(curve.amplitude_um_pp[j]),
-                phase_rise_deg=cand.phase_rise_deg if cand else math.nan,
-                half_power=hp,
-                circle=start.circles.get(curve.probe),
-                modal_constant_um_pp=participation,
-                flags=hp.flags if hp else (),
-            )
-        )
-    return tuple(details)
-
-
-def _edge_flags(start: _Start, natural_speed_rpm: float) -> tuple[str, ...]:
-    smin = min(float(c.speed_rpm[0]) for c in start.curves)
-    smax = max(float(c.speed_rpm[-1]) for c in start.curves)
-    flags = []
-    if not smin <= natural_speed_rpm <= smax:
-        flags.append("outside_record")
-    hps = list(start.half_powers.values())
-    if hps and all("peak_at_range_edge" in h.flags for h in hps):
-        flags.append("peak_at_range_edge")
-    return tuple(flags)
-
-
-def _make_critical(
-    start: _Start,
-    *,
-    natural_speed_rpm: float,
-    damping_ratio: float,
-    natural_speed_ci: Interval | None,
-    damping_ci: Interval | None,
-    method: str,
-    notes: list[str],
-    extra_flags: tuple[str, ...],
-    fit: ModalFit | None,
-    k: int | None,
-) -> Critical:
-    r_peak, r1, r2, af, flags = _headline(damping_ratio)
-    af_ci = None
-    if damping_ci is not None:
-        bounds = [amplification_factor_from_damping(z) for z in (damping_ci.high, damping_ci.low)]
-        if all(math.isfinite(b) for b in bounds):
-            af_ci = Interval(bounds[0], bounds[1])
-    first = start.curves[0]
-    return Critical(
-        speed_rpm=natural_speed_rpm * r_peak,
-        natural_speed_rpm=natural_speed_rpm,
-        damping_ratio=damping_ratio,
-        amplification_factor=af,
-        lower_half_power_rpm=natural_speed_rpm * r1,
-        upper_half_power_rpm=natural_speed_rpm * r2,
-        natural_speed_ci95_rpm=natural_speed_ci,
-        damping_ratio_ci95=damping_ci,
-        amplification_factor_ci95=af_ci,
-        probes=start.mode.probes,
-        evidence=start.mode.evidence,
-        order=first.order,
-        segment=first.segment,
-        direction=first.direction,
-        method=method,  # type: ignore[arg-type]
-        af_method=f"API 684 half-power AF of the identified single-mode response ({method})",
-        flags=flags + extra_flags + _edge_flags(start, natural_speed_rpm),
-        notes=tuple(notes),
-        detail=_details(start, fit, k),
-        fit_low_rpm=fit.low_rpm if fit else start.low_rpm,
-        fit_high_rpm=fit.high_rpm if fit else start.high_rpm,
-        fit_points=fit.n_points if fit else 0,
-    )
-
-
-def _critical_from_fit(start: _Start, fit: ModalFit, k: int) -> Critical:
-    mode = fit.modes[k]
-    notes = [
-        f"natural speed and damping from one least-squares fit of {len(fit.modes)} mode(s) shared by "
-        f"{len(fit.probes)} probe(s), {fit.n_points} points in {fit.low_rpm:.0f}-{fit.high_rpm:.0f} rpm"
-    ]
-    return _make_critical(
-        start,
-        natural_speed_rpm=mode.natural_speed_rpm,
-        damping_ratio=mode.damping_ratio,
-        natural_speed_ci=_log_interval(mode.natural_speed_rpm, mode.natural_speed_stderr_rpm),
-        damping_ci=_log_interval(mode.damping_ratio, mode.damping_ratio_stderr),
-        method="modal_fit",
-        notes=notes,
-        extra_flags=(),
-        fit=fit,
-        k=k,
-    )
-
-
-def _fallback(start: _Start) -> Critical | None:
-    """Critical from the circle fit, else from half-power, when the modal fit fails."""
-    inside = [c for c in start.circles.values() if start.low_rpm <= c.natural_speed_rpm <= start.high_rpm]
-    if inside:
-        best = max(inside, key=lambda c: c.radius_um_pp)
-        return _make_critical(
-            start,
-            natural_speed_rpm=best.natural_speed_rpm,
-            damping_ratio=best.damping_ratio,
-            natural_speed_ci=None,
-            damping_ci=None,
-            method="circle_fit",
-            notes=["the modal fit could not confirm this mode; values from the circle fit of the probe "
-                   "with the largest circle"],
-            extra_flags=("fit_failed",),
-            fit=None,
-            k=None,
-        )
-    afs = [h.amplification_factor for h in start.half_powers.values() if h.amplification_factor]
-    if not afs:
-        return None
-    hp = max(start.half_powers.values(), key=lambda h: h.peak_amplitude_um_pp)
-    af = hp.amplification_factor or float(np.median(afs))
-    zeta = damping_from_amplification_factor(af)
-    return _make_critical(
-        start,
-        natural_speed_rpm=hp.peak_speed_rpm / peak_speed_ratio(zeta),
-        damping_ratio=zeta,
-        natural_speed_ci=None,
-        damping_ci=None,
-        method="half_power",
-        notes=["neither the modal fit nor a circle fit could be made; damping from the half-power AF "
-               "of the probe with the highest peak, inverted with the single-mode relation"],
-        extra_flags=("fit_failed",),
-        fit=None,
-        k=None,
-    )

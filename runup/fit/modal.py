@@ -73,11 +73,15 @@ class ModalFit:
     noise_rms_um_pp
         Estimated RMS of the complex residual, ``sqrt(SSR / (N - P/2))``.
     n_points
-        Complex points fitted (all probes).
+        Complex samples fitted (all probes; binned points count as the samples they average).
     low_rpm, high_rpm
         Speed window.
     converged
         Whether the optimiser reported convergence.
+    ssr_um2
+        Sum of squared complex residuals (weighted), um^2.
+    n_parameters
+        Real parameters fitted (nonlinear and linear).
     """
 
     modes: tuple[ModeEstimate, ...]
@@ -89,6 +93,8 @@ class ModalFit:
     low_rpm: float
     high_rpm: float
     converged: bool
+    ssr_um2: float = math.nan
+    n_parameters: int = 0
 
     def predict(self, probe: str, speed_rpm: NDArray[np.float64]) -> NDArray[np.complex128]:
         """Fitted complex response of one probe at the given speeds (um pp)."""
@@ -116,6 +122,7 @@ def fit_modes(
     *,
     initial: Sequence[tuple[float, float]],
     residual_terms: bool = True,
+    weights: Sequence[NDArray[np.float64]] | None = None,
 ) -> ModalFit:
     """Fit shared modes to the complex responses of one or more probes.
 
@@ -128,6 +135,10 @@ def fit_modes(
         Starting ``(natural_speed_rpm, damping_ratio)`` per mode.
     residual_terms
         Include ``B_p + C_p s^2`` (see module notes).
+    weights
+        Per curve, the number of samples each point averages (binned data); residuals
+        are weighted by its square root so that the fit and its covariance equal those of
+        the unbinned samples to first order.  Default: all ones.
 
     Returns
     -------
@@ -142,9 +153,12 @@ def fit_modes(
         raise FitError("fit_modes needs at least one starting mode")
     n_modes = len(initial)
     n_lin = n_modes + (2 if residual_terms else 0)
-    n_points = sum(len(c[1]) for c in curves)
+    if weights is None:
+        weights = [np.ones(len(c[1])) for c in curves]
+    roots = [np.sqrt(np.asarray(w, dtype=float)) for w in weights]
+    n_points = int(round(sum(float(np.sum(w)) for w in weights)))
     n_real_params = 2 * n_modes + 2 * n_lin * len(curves)
-    if 2 * n_points <= n_real_params + 2:
+    if 2 * min(n_points, sum(len(c[1]) for c in curves)) <= n_real_params + 2:
         raise FitError(
             f"{n_points} points are too few to fit {n_modes} mode(s) on {len(curves)} probe(s)"
         )
@@ -165,10 +179,10 @@ def fit_modes(
         wn = ref * np.exp(theta[:n_modes])
         zeta = np.exp(theta[n_modes:])
         res, coefs = [], []
-        for s, x in zip(speeds, data, strict=True):
+        for s, x, w in zip(speeds, data, roots, strict=True):
             phi = _basis(s, wn, zeta, ref, residual_terms)
-            coef, *_ = np.linalg.lstsq(phi, x, rcond=None)
-            e = x - phi @ coef
+            coef, *_ = np.linalg.lstsq(phi * w[:, None], x * w, rcond=None)
+            e = (x - phi @ coef) * w
             res.append(e)
             coefs.append(coef)
         e = np.concatenate(res)
@@ -215,4 +229,6 @@ def fit_modes(
         low_rpm=smin,
         high_rpm=smax,
         converged=bool(sol.success),
+        ssr_um2=ssr,
+        n_parameters=n_real_params,
     )
