@@ -325,10 +325,15 @@ def _fit_cluster(curves: Sequence[Curve], cluster: list[Start]) -> tuple[list[Cr
         except FitError as exc:
             notes.append(f"fit of {len(active)} mode(s) in {low:.0f}-{high:.0f} rpm failed: {exc}")
             break
-        # fit.modes and active are both in ascending speed; a mode must stay in its own window
+        # modes the residual asks for first: an unresolved neighbour (a split pair, say)
+        # inflates the residual and can make a true mode look insignificant
+        selection = select_modes(data, weights, fit, noise_rms_um_pp=sigma)
+        fit = selection.fit
+        base = [k for k in range(len(fit.modes)) if k not in selection.added]
+        # base modes and active starts are both in ascending speed; a mode must stay in its own window
         bad = [
-            k
-            for k, start in enumerate(active)
+            i
+            for i, (k, start) in enumerate(zip(base, active, strict=True))
             if start.review_reason is None
             and not (
                 mode_is_plausible(fit, k)
@@ -337,9 +342,6 @@ def _fit_cluster(curves: Sequence[Curve], cluster: list[Start]) -> tuple[list[Cr
             )
         ]
         if not bad:
-            selection = select_modes(data, weights, fit, noise_rms_um_pp=sigma)
-            fit = selection.fit
-            base = [k for k in range(len(fit.modes)) if k not in selection.added]
             for k, start in zip(base, active, strict=True):
                 found.append(critical_from_fit(start, fit, k, reason=_keep_reason(start, fit, k), window=raw))
             for k, drop in zip(selection.added, selection.bic_drops, strict=True):

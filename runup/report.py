@@ -7,17 +7,21 @@ The JSON document written by ``runup identify --json`` is described in ``docs/js
 from __future__ import annotations
 
 import math
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from ._version import __version__
-from .critical import Critical, Identification, Interval, ProbeDetail
+from .critical import Critical, Identification, Interval, ProbeDetail, SplitBranch, SplitPair
+from .estimators import EstimatorTable
 from .fit.circle import CircleFit
 from .fit.half_power import HalfPower
 from .run import ConditionedRun
 
-__all__ = ["SCHEMA_VERSION", "CAUTION", "identification_to_dict"]
+if TYPE_CHECKING:  # only for annotations: stiffness imports compare, which imports this module
+    from .stiffness import StiffnessEstimate
+
+__all__ = ["SCHEMA_VERSION", "CAUTION", "json_number", "identification_to_dict", "stiffness_to_dict"]
 
 SCHEMA_VERSION = 1
 
@@ -31,11 +35,15 @@ CAUTION = (
 _MAX_ROWS_LISTED = 50
 
 
-def _num(value: float | None) -> float | None:
+def json_number(value: float | None) -> float | None:
+    """A float for JSON: ``None`` for missing or non-finite values."""
     if value is None:
         return None
     value = float(value)
     return value if math.isfinite(value) else None
+
+
+_num = json_number
 
 
 def _interval(ci: Interval | None) -> list[float] | None:
@@ -94,6 +102,45 @@ def _detail(d: ProbeDetail) -> dict[str, Any]:
     }
 
 
+def _estimators(table: EstimatorTable | None) -> dict[str, Any] | None:
+    if table is None:
+        return None
+    return {
+        "headline": table.headline,
+        "reason": table.reason,
+        "disagree": list(table.disagree),
+        "rows": [
+            {
+                "estimator": r.estimator,
+                "amplification_factor": _num(r.amplification_factor),
+                "amplification_factor_ci95": [_num(r.af_ci95_low), _num(r.af_ci95_high)],
+                "damping_ratio": _num(r.damping_ratio),
+                "probe": r.probe,
+                "note": r.note,
+            }
+            for r in table.rows
+        ],
+    }
+
+
+def _split(pair: SplitPair | None) -> dict[str, Any] | None:
+    if pair is None:
+        return None
+
+    def branch(b: SplitBranch) -> dict[str, Any]:
+        return {
+            "speed_rpm": _num(b.speed_rpm),
+            "natural_speed_rpm": _num(b.natural_speed_rpm),
+            "natural_speed_ci95_rpm": _interval(b.natural_speed_ci95_rpm),
+            "damping_ratio": _num(b.damping_ratio),
+            "amplification_factor": _num(b.amplification_factor),
+            "dominant_probe": b.dominant_probe,
+            "direction_deg": _num(b.direction_deg),
+        }
+
+    return {"lower": branch(pair.lower), "upper": branch(pair.upper), "separation_percent": _num(pair.separation_percent)}
+
+
 def critical_to_dict(c: Critical) -> dict[str, Any]:
     """One critical as a JSON-ready dictionary (see ``docs/json.md``)."""
     return {
@@ -109,6 +156,7 @@ def critical_to_dict(c: Critical) -> dict[str, Any]:
         "probes": list(c.probes),
         "evidence": c.evidence,
         "order": c.order,
+        "shaft_speed_rpm": _num(c.shaft_speed_rpm),
         "segment": c.segment,
         "direction": c.direction,
         "method": c.method,
@@ -116,6 +164,8 @@ def critical_to_dict(c: Critical) -> dict[str, Any]:
         "flags": list(c.flags),
         "notes": list(c.notes),
         "fit": {"low_rpm": _num(c.fit_low_rpm), "high_rpm": _num(c.fit_high_rpm), "points": c.fit_points},
+        "split": _split(c.split),
+        "estimators": _estimators(c.estimators),
         "detail": [_detail(d) for d in c.detail],
     }
 
@@ -192,6 +242,7 @@ def identification_to_dict(result: Identification) -> dict[str, Any]:
         "conditioning": conditioning_to_dict(result.conditioned),
         "criticals": [critical_to_dict(c) for c in result.criticals],
         "rejected_candidates": list(result.rejected),
+        "settings": dict(result.settings),
     }
     out["message"] = (
         f"{len(result.criticals)} critical speed(s) identified"
@@ -199,3 +250,27 @@ def identification_to_dict(result: Identification) -> dict[str, Any]:
         else "no resonance found in the record"
     )
     return out
+
+
+def stiffness_to_dict(estimate: StiffnessEstimate) -> dict[str, Any]:
+    """The support-stiffness estimate as a JSON-ready dictionary."""
+    return {
+        "stiffness_ratio": _num(estimate.stiffness_ratio),
+        "ci95": _interval(estimate.ci95),
+        "chi_square": _num(estimate.chi_square),
+        "degrees_of_freedom": estimate.degrees_of_freedom,
+        "p_value": _num(estimate.p_value),
+        "map_range": [_num(estimate.map_range[0]), _num(estimate.map_range[1])],
+        "residuals": [
+            {
+                "mode": r.mode,
+                "measured_speed_rpm": _num(r.measured_speed_rpm),
+                "map_speed_rpm": _num(r.map_speed_rpm),
+                "residual_percent": _num(r.residual_percent),
+            }
+            for r in estimate.residuals
+        ],
+        "flags": list(estimate.flags),
+        "warnings": list(estimate.warnings),
+        "caveat": estimate.caveat,
+    }

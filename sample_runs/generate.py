@@ -3,7 +3,7 @@
 Scenario (invented): "SYN-K7", a synthetic two-bearing centrifugal compressor on a
 test stand, with X-Y proximity probes at the drive-end (DE) and non-drive-end (NDE)
 bearings, mounted 45 degrees either side of vertical.  Rotation counter-clockwise viewed
-from the driver.  Minimum operating speed 10,200 rpm, maximum continuous 11,500 rpm,
+from the driver.  Minimum operating speed 10,500 rpm, maximum continuous 11,500 rpm,
 trip 12,075 rpm.
 
 Run ``python sample_runs/generate.py`` to re-create the files; the truth they were
@@ -23,7 +23,7 @@ from runup.synthetic import SyntheticMode, SyntheticProbe, synthetic_samples
 HERE = Path(__file__).resolve().parent
 
 SPEEDS_TOML = """[speeds]
-min_operating_rpm = 10200
+min_operating_rpm = 10500
 max_continuous_rpm = 11500
 trip_rpm = 12075
 """
@@ -59,10 +59,10 @@ def startup() -> dict:
     """Startup to 12,000 rpm: first (rigid-body-like) mode and second (bending-like) mode."""
     modes = [SyntheticMode(4350.0, 0.055), SyntheticMode(8900.0, 0.085)]
     probes = [
-        SyntheticProbe("DE-X", (_polar(9.0, -20), _polar(7.0, 150)), _polar(4.2, 30), "DE", -45),
-        SyntheticProbe("DE-Y", (_polar(8.0, -110), _polar(6.5, 60)), _polar(3.1, 120), "DE", 45),
-        SyntheticProbe("NDE-X", (_polar(11.0, -10), _polar(9.5, -30)), _polar(5.0, 200), "NDE", -45),
-        SyntheticProbe("NDE-Y", (_polar(10.0, -100), _polar(8.5, -120)), _polar(2.7, 290), "NDE", 45),
+        SyntheticProbe("DE-X", (_polar(5.5, -20), _polar(3.6, 150)), _polar(4.2, 30), "DE", -45),
+        SyntheticProbe("DE-Y", (_polar(5.0, -110), _polar(3.3, 60)), _polar(3.1, 120), "DE", 45),
+        SyntheticProbe("NDE-X", (_polar(6.5, -10), _polar(4.6, -30)), _polar(5.0, 200), "NDE", -45),
+        SyntheticProbe("NDE-Y", (_polar(6.0, -100), _polar(4.2, -120)), _polar(2.7, 290), "NDE", 45),
     ]
     rng = np.random.default_rng(2026)
     time_s = np.arange(0.0, 190.0, 0.5)
@@ -75,19 +75,20 @@ def startup() -> dict:
         'run_id = "SYN-K7-startup-01"\ndirection = "startup"\nrotation = "ccw"\n\n' + SPEEDS_TOML + PROBES_TOML
     )
     return {"file": "compressor_startup.csv", "layout": "long", "modes": [m.__dict__ for m in modes],
-            "noise_fraction_of_peak": 0.015, "note": "two modes, both below the minimum operating speed"}
+            "noise_fraction_of_peak": 0.015, "note": "two modes, both below the minimum operating speed; keeps the api617 margins"}
 
 
 def coastdown() -> dict:
-    """Coastdown from 12,000 rpm, wide layout, split first critical, glitches and gaps."""
+    """Hot coastdown from 12,000 rpm after a long run, wide layout, split first critical,
+    second critical moved up (invented: warmer oil, stiffer bearings), glitches and gaps."""
     # anisotropic supports: a horizontal-dominant mode at 4,210 rpm and a vertical-dominant
     # one at 4,520 rpm, each seen with different weight by the 45-degree probes
-    modes = [SyntheticMode(4210.0, 0.045), SyntheticMode(4520.0, 0.05), SyntheticMode(8950.0, 0.08)]
+    modes = [SyntheticMode(4210.0, 0.045), SyntheticMode(4520.0, 0.05), SyntheticMode(9350.0, 0.075)]
     probes = [
-        SyntheticProbe("DE-X", (_polar(8.5, -15), _polar(3.0, 75), _polar(6.8, 150)), _polar(4.0, 25), "DE", -45),
-        SyntheticProbe("DE-Y", (_polar(3.0, -105), _polar(8.0, -15), _polar(6.2, 60)), _polar(3.2, 115), "DE", 45),
-        SyntheticProbe("NDE-X", (_polar(10.0, -5), _polar(3.5, 85), _polar(9.0, -30)), _polar(4.8, 205), "NDE", -45),
-        SyntheticProbe("NDE-Y", (_polar(3.6, -95), _polar(9.5, -5), _polar(8.0, -120)), _polar(2.9, 285), "NDE", 45),
+        SyntheticProbe("DE-X", (_polar(5.5, -15), _polar(2.0, 75), _polar(3.4, 150)), _polar(4.0, 25), "DE", -45),
+        SyntheticProbe("DE-Y", (_polar(2.0, -105), _polar(5.2, -15), _polar(3.1, 60)), _polar(3.2, 115), "DE", 45),
+        SyntheticProbe("NDE-X", (_polar(6.5, -5), _polar(2.3, 85), _polar(4.5, -30)), _polar(4.8, 205), "NDE", -45),
+        SyntheticProbe("NDE-Y", (_polar(2.4, -95), _polar(6.2, -5), _polar(4.0, -120)), _polar(2.9, 285), "NDE", 45),
     ]
     time_s = np.arange(0.0, 360.0, 0.4)
     speed = 12000.0 * np.exp(-time_s / 95.0)  # exponential coastdown, invented
@@ -112,8 +113,9 @@ def coastdown() -> dict:
     )
     return {"file": "compressor_coastdown.csv", "layout": "wide", "modes": [m.__dict__ for m in modes],
             "noise_fraction_of_peak": 0.012,
-            "note": "first critical split by support anisotropy (4,210 / 4,520 rpm); one spike at ~6,500 rpm "
-                    "on NDE-X, two empty cells; speeds rounded to 1 rpm"}
+            "note": "first critical split by support anisotropy (4,210 / 4,520 rpm); second critical moved "
+                    "up to 9,350 rpm, inside the api617 margin below the minimum operating speed; one spike "
+                    "at ~6,500 rpm on NDE-X, two empty cells; speeds rounded to 1 rpm"}
 
 
 def pump() -> dict:

@@ -109,3 +109,45 @@ def test_failed_write_leaves_existing_output_intact(tmp_path):
     res = runner.invoke(app, ["identify", str(SAMPLES / "pump_startup.parquet"), "--json", str(target / "o.json")])
     assert res.exit_code == 2 and "cannot write" in res.stderr
     assert json.loads(good.read_text()) == {"old": True}
+
+
+def test_check_exit_codes_follow_the_verdicts(tmp_path):
+    """`runup check` exits 0 when every rule passes (startup) and 1 when a margin fails (hot
+    coastdown, second critical ~10 % below MOS against ~14 % required by the api617 form)."""
+    ok = runner.invoke(app, ["check", str(SAMPLES / "compressor_startup.csv"), "--rules", "api617"])
+    assert ok.exit_code == 0, ok.output
+    assert "[pass]" in ok.output and "from memory" in ok.output
+    bad = runner.invoke(app, ["check", str(SAMPLES / "compressor_coastdown.csv"), "--rules", "api617",
+                              "--json", str(tmp_path / "c.json")])
+    assert bad.exit_code == 1, bad.output
+    assert json.loads((tmp_path / "c.json").read_text())["exit_code"] == 1
+    unknown = runner.invoke(app, ["check", str(SAMPLES / "compressor_startup.csv"), "--rules", "nope"])
+    assert unknown.exit_code == 2 and "api617" in unknown.stderr
+
+
+def test_compare_prints_scorecard_and_bad_predicted_is_exit_2(tmp_path):
+    """`runup compare` prints the scorecard with a score; a predicted file with a negative speed
+    is refused with one line and exit code 2."""
+    res = runner.invoke(app, ["compare", str(SAMPLES / "compressor_startup.csv"),
+                              "--predicted", str(SAMPLES / "compressor_predicted.toml")])
+    assert res.exit_code == 0, res.output
+    assert "agreement score" in res.output and "1st forward" in res.output
+    bad = tmp_path / "pred.csv"
+    bad.write_text("mode,speed_rpm\nfirst,-4200\n")
+    res = runner.invoke(app, ["compare", str(SAMPLES / "compressor_startup.csv"), "--predicted", str(bad)])
+    assert res.exit_code == 2 and res.stderr.startswith("error: ") and "speed" in res.stderr
+
+
+def test_subtract_writes_a_run_identify_reads(tmp_path):
+    """`runup subtract` writes a run file that `runup identify` accepts; it refuses to overwrite an input."""
+    out = tmp_path / "diff.parquet"
+    res = runner.invoke(app, ["subtract", str(SAMPLES / "compressor_startup.csv"),
+                              str(SAMPLES / "compressor_startup.csv"), "-o", str(out)])
+    assert res.exit_code == 0, res.output
+    assert out.exists() and (tmp_path / "diff.toml").exists()
+    res = runner.invoke(app, ["identify", str(out)])
+    assert res.exit_code == 0  # a run minus itself is all zeros: no resonance, reported as such
+    assert "No resonance found" in res.output
+    res = runner.invoke(app, ["subtract", str(SAMPLES / "compressor_startup.csv"),
+                              str(SAMPLES / "pump_startup.parquet"), "-o", str(SAMPLES / "compressor_startup.csv")])
+    assert res.exit_code == 2
