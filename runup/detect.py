@@ -77,8 +77,8 @@ class Candidate:
     phase_rise_deg
         Lag rise over the window around the candidate (``nan`` where phase is unreliable).
     bandwidth_rpm
-        Half-power bandwidth ``N_2 - N_1`` of an amplitude peak on this probe (twice the
-        distance to the one point found when one is missing; ``nan`` when unknown).
+        Half-power bandwidth ``N_2 - N_1`` of an amplitude peak on this probe (``nan`` when
+        a half-power point is missing).
     """
 
     probe: str
@@ -163,11 +163,8 @@ def find_candidates(curve: Curve) -> tuple[Candidate, ...]:
         rise = rise_at(s)
         evidence: Evidence = "peak+phase" if rise >= PHASE_RISE_DEG else "peak"
         hp = half_power(curve.speed_rpm, amp, peak_index=int(idx))
-        if hp.bandwidth_rpm is not None:
-            width = hp.bandwidth_rpm
-        else:
-            side = hp.lower_speed_rpm if hp.lower_speed_rpm is not None else hp.upper_speed_rpm
-            width = 2.0 * abs(s - side) if side is not None else math.nan
+        # only a two-sided band is a width; a one-sided one may run to a neighbouring mode
+        width = hp.bandwidth_rpm if hp.bandwidth_rpm is not None else math.nan
         found.append(
             Candidate(curve.probe, curve.order, curve.segment, s, evidence, int(idx), float(prom / floor), rise, width)
         )
@@ -205,7 +202,8 @@ def consolidate(candidates: Sequence[Candidate], *, tolerance: float = SAME_MODE
     group when it lies within ``tolerance`` (relative) of the group's median speed, or
     within half the half-power bandwidth of any member (a damped mode's peak moves between
     probes by a fraction of its bandwidth as neighbouring modes and residuals add to it;
-    two peaks closer than that cannot be told apart by their amplitude).  A
+    two peaks closer than that cannot be told apart by their amplitude); a group holds at
+    most one candidate per probe.  A
     phase-only candidate then joins the nearest group within the phase window
     (``PHASE_WINDOW``, the resolution of the phase-rise test); the others are chained among
     themselves with that same tolerance.
@@ -237,7 +235,8 @@ def consolidate(candidates: Sequence[Candidate], *, tolerance: float = SAME_MODE
 def _chain(candidates: Sequence[Candidate], tolerance: float) -> list[list[Candidate]]:
     groups: list[list[Candidate]] = []
     for cand in candidates:
-        if groups:
+        # a probe shows one resonance once: its second candidate starts a new group
+        if groups and all(c.probe != cand.probe for c in groups[-1]):
             ref = _group_speed(groups[-1])
             widths = [c.bandwidth_rpm for c in groups[-1] + [cand] if math.isfinite(c.bandwidth_rpm)]
             limit = max([tolerance * ref] + [0.5 * w for w in widths])

@@ -169,8 +169,13 @@ def _with_review_additions(modes: list[ModeCandidate], review: Review, segment: 
 
 # ----------------------------------------------------------------------------------------
 def _half_width(damping_ratio: float) -> float:
-    """Relative half-width of a fit window: five half-power half-widths, 8 % to 60 %."""
-    return float(np.clip(5.0 * damping_ratio, 0.08, 0.6))
+    """Relative half-width of a fit window: ten half-power half-widths, 15 % to 60 %.
+
+    Wide enough that the flanks, which carry much of the information on damping and on the
+    residual terms, are in the fit (the Cramer-Rao bound falls as the window widens); modes
+    beyond it are far enough for the residual terms to take them.
+    """
+    return float(np.clip(10.0 * damping_ratio, 0.15, 0.6))
 
 
 def _index(curve: Curve, speed_rpm: float) -> int:
@@ -183,10 +188,11 @@ def _prepare(curves: Sequence[Curve], mode: ModeCandidate, lower: float, upper: 
     guesses: list[float] = []
     for cand in mode.members:
         curve = by_probe[cand.probe]
-        if cand.peak_index is not None:
+        lo_i, hi_i = _index(curve, lower), _index(curve, upper)
+        if cand.peak_index is not None and lo_i <= cand.peak_index <= hi_i:
             hp = half_power(
                 curve.speed_rpm, curve.amplitude_um_pp, peak_index=cand.peak_index,
-                search_from=_index(curve, lower), search_to=_index(curve, upper),
+                search_from=lo_i, search_to=hi_i,
             )
             half_powers[cand.probe] = hp
             if hp.amplification_factor and "half_power_one_sided" not in hp.flags:
@@ -217,11 +223,9 @@ def _prepare(curves: Sequence[Curve], mode: ModeCandidate, lower: float, upper: 
             idx = np.nonzero(inside)[0]
             sel = np.zeros_like(sel)
             sel[idx[np.argsort(np.abs(curve.speed_rpm[idx] - mode.speed_rpm))[:6]]] = True
+        bs, bx, _ = bin_curve(curve.speed_rpm[sel], curve.response_um_pp[sel])
         try:
-            circles[cand.probe] = circle_fit(
-                curve.speed_rpm[sel], curve.response_um_pp[sel],
-                natural_speed_guess_rpm=mode.speed_rpm, damping_ratio_guess=zeta,
-            )
+            circles[cand.probe] = circle_fit(bs, bx, natural_speed_guess_rpm=mode.speed_rpm, damping_ratio_guess=zeta)
         except FitError:
             pass
     width = _half_width(zeta)

@@ -42,6 +42,9 @@ from .models import amplification_factor_from_damping
 
 __all__ = ["CircleFit", "fit_circle", "circle_fit", "damping_from_point_pair"]
 
+#: Points on each side of resonance used for Ewins' pairwise damping estimates.
+_MAX_PAIR_POINTS = 30
+
 
 @dataclass(frozen=True)
 class CircleFit:
@@ -206,19 +209,19 @@ def circle_fit(
     resid = np.abs(y - center) - radius
 
     # Ewins' pairwise damping (consistency): theta measured from the resonance point,
-    # whose angle about the centre is alpha - 2 * 90 deg.
+    # whose angle about the centre is alpha - 2 * 90 deg.  Vectorised over all pairs of at
+    # most _MAX_PAIR_POINTS points each side (nearest the resonance).
     theta = np.abs(_wrap(psi - (alpha - math.pi)))
-    below = np.nonzero(speed < wn)[0]
-    above = np.nonzero(speed > wn)[0]
-    pairs = [
-        damping_from_point_pair(
-            omega_a=speed[a], theta_a_rad=theta[a], omega_b=speed[b], theta_b_rad=theta[b], omega_r=wn
-        )
-        for a in above
-        for b in below
-        if theta[a] < math.radians(170.0) and theta[b] < math.radians(170.0)
-    ]
-    if len(pairs) >= 2:
+    ok = theta < math.radians(170.0)
+    below = np.nonzero((speed < wn) & ok)[0][-_MAX_PAIR_POINTS:]
+    above = np.nonzero((speed > wn) & ok)[0][:_MAX_PAIR_POINTS]
+    if below.size and above.size:
+        wa, wb = speed[above][:, None], speed[below][None, :]
+        ta, tb = np.tan(theta[above] / 2.0)[:, None], np.tan(theta[below] / 2.0)[None, :]
+        pairs = ((wa**2 - wb**2) / (2.0 * wn * (wa * ta + wb * tb))).ravel()
+    else:
+        pairs = np.empty(0)
+    if pairs.size >= 2:
         q1, med, q3 = np.percentile(pairs, [25, 50, 75])
         spread = float((q3 - q1) / med) if med > 0 else math.nan
     else:

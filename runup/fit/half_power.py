@@ -120,6 +120,8 @@ def half_power(
     lo = 0 if search_from is None else max(0, int(search_from))
     hi = speed.size - 1 if search_to is None else min(speed.size - 1, int(search_to))
     k = lo + int(np.argmax(amp[lo : hi + 1])) if peak_index is None else int(peak_index)
+    if not lo <= k <= hi:
+        raise ValueError(f"peak index {k} lies outside the search range {lo}-{hi}")
     peak = float(amp[k])
     nc = float(speed[k])
     flags: list[str] = []

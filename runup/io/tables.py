@@ -179,7 +179,8 @@ def read_run(
     table = _CsvTable(data, file=file) if reader == "csv" else _ParquetTable(data, file=file)
     cmap = _merge_maps(side.column_map if side else {}, column_map or {})
     layout = _detect(table.header, cmap, file=file)
-    arrays = table.read([c.index for c in layout.columns])
+    numeric = [c.index for c in layout.columns if c.role in ("speed", "amplitude", "phase", "time")]
+    arrays = table.read([c.index for c in layout.columns], numeric=numeric)
     if len(arrays[layout.speed.index]) == 0:  # e.g. only empty lines after the header
         raise DataFormatError("the file has a header but no data rows", file=file)
     samples = _samples(layout, arrays, file=file)
@@ -249,11 +250,25 @@ class _CsvTable:
         self.delimiter = next((d for d in (",", "\t", ";") if d in line), ",")
         self.header = tuple(h.strip() for h in next(csv.reader([line], delimiter=self.delimiter)))
 
-    def read(self, indices: Sequence[int]) -> dict[int, pa.Array]:
+    def read(self, indices: Sequence[int], *, numeric: Sequence[int] = ()) -> dict[int, pa.Array]:
+        """Columns by index.  ``numeric`` columns are first parsed as float64 directly (the
+        fast path); when any cell does not parse, every column is read as text instead so
+        that the caller can name the offending cell."""
         names = [f"c{i}" for i in range(len(self.header))]
         keep = [names[i] for i in indices]
         read_opts = pacsv.ReadOptions(column_names=names, skip_rows=1)
         parse_opts = pacsv.ParseOptions(delimiter=self.delimiter)
+        if numeric:
+            types = {names[i]: (pa.float64() if i in numeric else pa.string()) for i in indices}
+            tokens = sorted({t for m in MISSING_TOKENS for t in (m, m.upper(), m.capitalize())})
+            fast = pacsv.ConvertOptions(include_columns=keep, column_types=types, null_values=tokens,
+                                        strings_can_be_null=False)
+            try:
+                table = pacsv.read_csv(pa.BufferReader(self.data), read_options=read_opts,
+                                       parse_options=parse_opts, convert_options=fast)
+                return {i: table.column(f"c{i}").combine_chunks() for i in indices}
+            except (pa.ArrowInvalid, UnicodeDecodeError):
+                pass  # fall through to the text path, which locates the problem
         conv_opts = pacsv.ConvertOptions(
             include_columns=keep, column_types=dict.fromkeys(keep, pa.string())
         )
@@ -327,7 +342,9 @@ class _ParquetTable:
         if self.pf.metadata.num_rows == 0:
             raise DataFormatError("the file has columns but no data rows", file=file)
 
-    def read(self, indices: Sequence[int]) -> dict[int, pa.Array]:
+    def read(self, indices: Sequence[int], *, numeric: Sequence[int] = ()) -> dict[int, pa.Array]:
+        """Columns by index (Parquet columns are typed already; ``numeric`` is not needed)."""
+        del numeric
         names = self.pf.schema_arrow.names
         try:
             table = self.pf.read(columns=[names[i] for i in indices])
