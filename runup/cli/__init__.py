@@ -45,6 +45,7 @@ def _main(
 
 from . import identify as _identify  # noqa: E402,F401  (registers its command)
 from . import judge as _judge  # noqa: E402,F401
+from . import waveform as _waveform  # noqa: E402,F401
 
 __all__ = ["app", "main"]
 

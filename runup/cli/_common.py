@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import math
 import shutil
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Annotated, NoReturn
 
@@ -20,7 +20,10 @@ from ..critical import Identification, Interval
 from ..errors import RunupError
 from ..identify import identify_conditioned
 from ..io import parse_column_map, read_run
+from ..io.waveform import is_waveform
 from ..review import read_review
+from ..run import Run
+from ..vectors import waveform_vectors
 
 EXIT_RULE_FAILED = 1
 EXIT_BAD_INPUT = 2
@@ -90,6 +93,28 @@ def parse_window(text: str) -> tuple[float, float]:
     return (low, high)
 
 
+def load_run(opts: RunOptions) -> Run:
+    """Read a run table, or compute the run from a waveform record (``[waveform]`` in its TOML)."""
+    if is_waveform(opts.run_file):
+        if opts.column or opts.sidecar is not None or opts.no_sidecar:
+            raise UsageProblem("--column and --sidecar options apply to run tables, not to waveform records")
+        run = waveform_vectors(opts.run_file).run
+        if opts.machine_id or opts.run_id:
+            run = Run(
+                replace(run.metadata, machine_id=opts.machine_id or run.metadata.machine_id,
+                        run_id=opts.run_id or run.metadata.run_id),
+                run.samples,
+            )
+        return run
+    return read_run(
+        opts.run_file,
+        column_map=parse_column_map(list(opts.column)),
+        sidecar=None if opts.no_sidecar else (opts.sidecar if opts.sidecar is not None else "auto"),
+        machine_id=opts.machine_id,
+        run_id=opts.run_id,
+    )
+
+
 def load_identification(opts: RunOptions) -> Identification:
     """Read, condition and identify a run from CLI options (raises RunupError on bad input)."""
     if opts.slow_roll is not None and opts.no_slow_roll:
@@ -99,13 +124,7 @@ def load_identification(opts: RunOptions) -> Identification:
     window: str | tuple[float, float] = "off" if opts.no_slow_roll else "auto"
     if opts.slow_roll is not None:
         window = parse_window(opts.slow_roll)
-    run = read_run(
-        opts.run_file,
-        column_map=parse_column_map(list(opts.column)),
-        sidecar=None if opts.no_sidecar else (opts.sidecar if opts.sidecar is not None else "auto"),
-        machine_id=opts.machine_id,
-        run_id=opts.run_id,
-    )
+    run = load_run(opts)
     decisions = read_review(opts.review) if opts.review is not None else None
     return identify_conditioned(condition(run, slow_roll=window, despike=not opts.no_despike), review=decisions)
 

@@ -638,3 +638,20 @@ def _check_time(
                 column="time_s",
                 row=row,
             )
+
+
+def is_waveform(path: str | os.PathLike) -> bool:
+    """Whether ``path`` is a waveform record: its ``<stem>.toml`` holds a ``[waveform]`` table.
+
+    A run table's sidecar never has one (its reader refuses unknown tables), so the two
+    kinds of file cannot be confused.  An unreadable TOML counts as "not a waveform"; the
+    run-table reader then reports it properly.
+    """
+    candidate = Path(path).with_suffix(".toml")
+    if not candidate.is_file():
+        return False
+    try:
+        doc = tomllib.loads(candidate.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError):
+        return False
+    return isinstance(doc.get("waveform"), dict)
