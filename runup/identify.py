@@ -9,7 +9,7 @@ frequency axis ``n x speed``, so a 2X resonance at shaft speed ``N`` is a mode a
    (:mod:`runup.fit.half_power`), which also gives a first damping estimate by inverting
    the single-mode AF relation; for phase-only evidence the damping that explains the
    observed phase rise; per probe a Kennedy–Pancu circle fit (:mod:`runup.fit.circle`);
-3. a window of ±5 zeta (8 % to 60 %) around each candidate; candidates whose windows
+3. a window of ±10 zeta (15 % to 60 %) around each candidate; candidates whose windows
    overlap are fitted together: one least-squares fit of the modal model to the complex
    responses of all probes (dense windows averaged into bins, :mod:`runup.fit.binning`),
    natural speed and damping shared, participations and residual terms per probe
