@@ -84,7 +84,7 @@ def _af_interval(z_ci: Interval | None) -> Interval | None:
     return Interval(bounds[0], bounds[1]) if all(math.isfinite(b) for b in bounds) else None
 
 
-def _major_axis_details(start: Start, low: float, high: float) -> list[ProbeDetail]:
+def _major_axis_details(start: Start, low: float, high: float, peak_rpm: float) -> list[ProbeDetail]:
     out = []
     by_probe = {c.probe: c for c in start.curves}
     for pair in start.pairs:
@@ -99,8 +99,11 @@ def _major_axis_details(start: Start, low: float, high: float) -> list[ProbeDeta
             common[sel], a.response_um_pp[ia[sel]], b.response_um_pp[ib[sel]],
             first_angle_deg=pair.first.angle_deg, second_angle_deg=pair.second.angle_deg,  # type: ignore[arg-type]
         )
-        major = major_axis_response(orb)
-        hp = half_power(orb.speed_rpm, np.abs(major))
+        major = np.abs(major_axis_response(orb))
+        # the peak of this mode: the highest point within 5 % of its expected peak speed
+        near = np.nonzero(np.abs(orb.speed_rpm / peak_rpm - 1.0) <= 0.05)[0]
+        k = int(near[np.argmax(major[near])]) if near.size else int(np.argmin(np.abs(orb.speed_rpm - peak_rpm)))
+        hp = half_power(orb.speed_rpm, major, peak_index=k)
         out.append(
             ProbeDetail(
                 probe=f"{pair.plane} major axis",
@@ -117,7 +120,7 @@ def _major_axis_details(start: Start, low: float, high: float) -> list[ProbeDeta
     return out
 
 
-def _details(start: Start, fit: ModalFit | None, k: int | None) -> tuple[ProbeDetail, ...]:
+def _details(start: Start, fit: ModalFit | None, k: int | None, peak_rpm: float) -> tuple[ProbeDetail, ...]:
     """Per-probe detail: probes with a candidate, probes the fit gives a clear participation,
     and the major axis of each X–Y pair."""
     members: dict[str, Candidate] = {c.probe: c for c in start.mode.members}
@@ -150,7 +153,7 @@ def _details(start: Start, fit: ModalFit | None, k: int | None) -> tuple[ProbeDe
                 flags=hp.flags if hp else (),
             )
         )
-    details.extend(_major_axis_details(start, start.low_rpm, start.high_rpm))
+    details.extend(_major_axis_details(start, start.low_rpm, start.high_rpm, peak_rpm))
     return tuple(details)
 
 
@@ -207,7 +210,7 @@ def _make(
         af_method=f"API 684 half-power AF of the identified single-mode response ({method})",
         flags=flags + extra_flags + _edge_flags(start, natural_speed_rpm),
         notes=tuple(notes),
-        detail=_details(start, fit, k),
+        detail=_details(start, fit, k, natural_speed_rpm * r_peak),
         fit_low_rpm=fit.low_rpm if fit else start.low_rpm,
         fit_high_rpm=fit.high_rpm if fit else start.high_rpm,
         fit_points=fit.n_points if fit else 0,

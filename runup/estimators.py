@@ -40,7 +40,7 @@ from numpy.typing import NDArray
 from scipy.optimize import least_squares
 
 from .errors import FitError
-from .fit.circle import circle_fit
+from .fit.circle import circle_fit, phase_lag_derivatives
 from .fit.half_power import half_power
 from .fit.modal import ModalFit
 from .fit.models import amplification_factor_from_damping, peak_speed_ratio
@@ -107,9 +107,13 @@ def phase_slope_damping(
         r = s / q[1]
         return q[0] + np.arctan2(2.0 * q[2] * r, 1.0 - r * r) - lag
 
+    def law_jacobian(q: NDArray[np.float64]) -> NDArray[np.float64]:
+        d_wn, d_zeta = phase_lag_derivatives(s, q[1], q[2])
+        return np.column_stack([np.ones_like(d_wn), d_wn, d_zeta])
+
     theta0 = float(np.mean(lag - np.arctan2(2.0 * z0 * s / natural_speed_rpm, 1.0 - (s / natural_speed_rpm) ** 2)))
     try:
-        sol = least_squares(law, [theta0, natural_speed_rpm, z0],
+        sol = least_squares(law, [theta0, natural_speed_rpm, z0], jac=law_jacobian,
                             bounds=([-np.inf, 0.5 * natural_speed_rpm, 1e-4], [np.inf, 2.0 * natural_speed_rpm, 0.7]),
                             x_scale=[0.1, 0.01 * natural_speed_rpm, z0])
     except ValueError:

@@ -210,6 +210,39 @@ def test_bode_bad_options_raise_one_line_errors(single_mode, options, needle):
     assert "\n" not in str(info.value)
 
 
+@pytest.fixture(scope="module")
+def coastdown():
+    """Identification of the synthetic coastdown, whose first critical is split (README)."""
+    result = runup.identify(str(ROOT / "sample_runs" / "compressor_coastdown.csv"))
+    assert result.criticals[0].split is not None
+    return result
+
+
+def test_bode_marks_both_branches_of_a_split_critical(coastdown):
+    """A split critical: dotted lines at both branch speeds (the SplitPair's speed_rpm) and
+    a label naming both; the headline marker stays at Critical.speed_rpm."""
+    plot = plots.bode(coastdown, probes=["NDE-X", "NDE-Y"])
+    split = coastdown.criticals[0].split
+    (pair,) = plot.split_markers
+    assert [line.get_xdata()[0] for line in pair] == [split.lower.speed_rpm, split.upper.speed_rpm]
+    assert all(line.get_linestyle() != "-" for line in pair)  # dotted, told apart from the solid headline marker
+    label = plot.critical_labels[0].get_text()
+    assert f"split: {split.lower.speed_rpm:,.0f} / {split.upper.speed_rpm:,.0f} rpm" in label
+    assert plot.critical_markers[0].get_xdata()[0] == coastdown.criticals[0].speed_rpm
+
+
+def test_bode_phase_only_where_amplitude_is_reliable(coastdown):
+    """Phase is drawn (finite) exactly where |X| >= 10 % of the curve's peak |X| (numpy.abs);
+    elsewhere — the slow-roll region after compensation — it is nan."""
+    plot = plots.bode(coastdown)
+    for curve in (c for c in coastdown.conditioned.curves if c.segment == 0 and c.order == 1):
+        amp = np.abs(curve.response_um_pp)
+        drawn = np.isfinite(np.asarray(plot.phase_lines[curve.probe].get_ydata(), dtype=float))
+        np.testing.assert_array_equal(drawn, amp >= 0.1 * amp.max())
+        assert not drawn[0], "the lowest speeds (slow roll, compensated to about zero) are not drawn"
+    assert "10%" in " ".join(t.get_text() for t in plot.legend.get_texts())
+
+
 # ----------------------------------------------------------------------------- polar
 
 
@@ -239,6 +272,20 @@ def test_polar_on_every_probe_of_every_sample(sample):
         assert not any(a.overlaps(b) for i, a in enumerate(boxes) for b in boxes[i + 1:])
         assert plot.ax.get_aspect() == 1.0
         assert "µm pk-pk" in plot.ax.get_xlabel() and "µm pk-pk" in plot.ax.get_ylabel()
+
+
+def test_polar_critical_labels_clear_of_lag_labels(coastdown):
+    """Critical labels overlap no lag label of the grid ("0°", "90°", ...) nor each other,
+    judged on the laid-out figure (matplotlib Bbox.overlaps)."""
+    for probe in ("NDE-X", "NDE-Y", "DE-X", "DE-Y"):
+        plot = plots.polar(coastdown, probe=probe)
+        plot.figure.draw_without_rendering()
+        grid = [t for t in plot.ax.texts if t.get_text().endswith("°")]
+        assert len(grid) == 4
+        boxes = [a.get_window_extent() for a in plot.critical_labels]
+        assert len(boxes) == len(plot.critical_markers) > 0
+        assert not any(b.overlaps(g.get_window_extent()) for b in boxes for g in grid)
+        assert not any(a.overlaps(b) for i, a in enumerate(boxes) for b in boxes[i + 1:])
 
 
 def test_polar_orientation_lag_90_points_down(single_mode):

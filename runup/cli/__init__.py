@@ -43,8 +43,10 @@ def _main(
     """Top-level options."""
 
 
+from . import archive as _archive  # noqa: E402,F401
 from . import identify as _identify  # noqa: E402,F401  (registers its command)
 from . import judge as _judge  # noqa: E402,F401
+from . import output as _output  # noqa: E402,F401
 from . import waveform as _waveform  # noqa: E402,F401
 
 __all__ = ["app", "main"]

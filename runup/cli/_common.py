@@ -20,6 +20,7 @@ from ..critical import Identification, Interval
 from ..errors import RunupError
 from ..identify import identify_conditioned
 from ..io import parse_column_map, read_run
+from ..io.atomic import write_text_atomic
 from ..io.waveform import is_waveform
 from ..review import read_review
 from ..run import Run
@@ -133,9 +134,7 @@ def write_text(path: Path, text: str) -> None:
     """Write a file atomically (temporary file, then rename): no half-written output remains."""
     try:
         path.parent.mkdir(parents=True, exist_ok=True)
-        tmp = path.with_name(f".{path.name}.tmp")
-        tmp.write_text(text, encoding="utf-8")
-        tmp.replace(path)
+        write_text_atomic(path, text)
     except OSError as exc:
         fail(f"{path}: cannot write ({exc.strerror})")
 

@@ -123,13 +123,33 @@ def fit_circle(points: ArrayLike) -> tuple[complex, float]:
     def residual(q: NDArray[np.float64]) -> NDArray[np.float64]:
         return np.hypot(x - q[0], y - q[1]) - q[2]
 
-    sol = least_squares(residual, start, method="lm")
+    def jacobian(q: NDArray[np.float64]) -> NDArray[np.float64]:
+        dx, dy = x - q[0], y - q[1]
+        d = np.maximum(np.hypot(dx, dy), np.finfo(float).tiny)
+        return np.column_stack([-dx / d, -dy / d, -np.ones_like(d)])
+
+    sol = least_squares(residual, start, jac=jacobian, method="lm")
     cx, cy, radius = sol.x
     return complex(cx, cy) + mean, float(abs(radius))
 
 
 def _phase_lag_rad(r: NDArray[np.float64], zeta: float) -> NDArray[np.float64]:
     return np.arctan2(2.0 * zeta * r, 1.0 - r * r)
+
+
+def phase_lag_derivatives(
+    speed_rpm: NDArray[np.float64], natural_speed_rpm: float, zeta: float
+) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """``d phi / d Omega_n`` (1/rpm) and ``d phi / d zeta`` of ``phi = atan2(2 zeta r, 1 - r^2)``.
+
+    With ``u = 1 - r^2``, ``v = 2 zeta r``, ``r = Omega / Omega_n`` (derived):
+    ``d phi / d zeta = 2 r u / (u^2 + v^2)`` and
+    ``d phi / d Omega_n = -2 zeta r (1 + r^2) / (Omega_n (u^2 + v^2))``.
+    """
+    r = speed_rpm / natural_speed_rpm
+    u, v = 1.0 - r * r, 2.0 * zeta * r
+    den = u * u + v * v
+    return -2.0 * zeta * r * (1.0 + r * r) / (natural_speed_rpm * den), 2.0 * r * u / den
 
 
 def _wrap(angle: NDArray[np.float64]) -> NDArray[np.float64]:
@@ -192,11 +212,15 @@ def circle_fit(
         wn, zeta, alpha = q
         return _wrap(psi - alpha + 2.0 * _phase_lag_rad(speed / wn, zeta))
 
+    def jacobian(q: NDArray[np.float64]) -> NDArray[np.float64]:
+        d_wn, d_zeta = phase_lag_derivatives(speed, q[0], q[1])
+        return np.column_stack([2.0 * d_wn, 2.0 * d_zeta, -np.ones_like(d_wn)])
+
     z0 = float(np.clip(damping_ratio_guess, 1e-3, 0.6))
     alpha0 = float(np.angle(np.mean(np.exp(1j * (psi + 2.0 * _phase_lag_rad(speed / ref, z0))))))
     lo = [speed.min() * 0.5, 1e-4, -4 * math.pi]
     hi = [speed.max() * 2.0, 0.7, 4 * math.pi]
-    sol = least_squares(residual, [ref, z0, alpha0], bounds=(lo, hi), x_scale=[ref * 0.01, z0, 0.1])
+    sol = least_squares(residual, [ref, z0, alpha0], jac=jacobian, bounds=(lo, hi), x_scale=[ref * 0.01, z0, 0.1])
     wn, zeta, alpha = (float(v) for v in sol.x)
     turned = float(np.ptp(np.unwrap(psi)))
     if not sol.success or turned < math.radians(60.0):

@@ -109,12 +109,123 @@ class ModalFit:
 
 
 def _basis(speed: NDArray, wn: NDArray, zeta: NDArray, ref: float, residual: bool) -> NDArray:
-    r = speed[:, None] / wn[None, :]
-    cols = r**2 / (1.0 - r**2 + 2j * zeta[None, :] * r)
+    """Model columns at ``speed`` (any leading shape): modes, then ``1`` and ``s^2``."""
+    r = speed[..., None] / wn
+    cols = r**2 / (1.0 - r**2 + 2j * zeta * r)
     if residual:
         s2 = (speed / ref) ** 2
-        cols = np.column_stack([cols, np.ones_like(speed), s2])
+        cols = np.concatenate([cols, np.ones_like(cols[..., :1]), s2[..., None].astype(complex)], axis=-1)
     return cols
+
+
+def _basis_derivatives(speed: NDArray, wn: NDArray, zeta: NDArray) -> tuple[NDArray, NDArray]:
+    """Derivatives of the mode columns ``f = r^2 / D`` with respect to ``log wn`` and ``log zeta``.
+
+    With ``D = 1 - r^2 + 2 j zeta r``: ``df/dr = 2 r (1 + j zeta r) / D^2``, ``dr/d(log wn) = -r``
+    and ``df/d(log zeta) = -2 j zeta r^3 / D^2`` (derived).
+    """
+    r = speed[..., None] / wn
+    d2 = (1.0 - r**2 + 2j * zeta * r) ** 2
+    return -2.0 * r**2 * (1.0 + 1j * zeta * r) / d2, -2j * zeta * r**3 / d2
+
+
+class _Projection:
+    """Variable projection of the linear terms, all probes at once (padded, zero weight).
+
+    For probe ``p`` the weighted basis ``A = W Phi(theta)`` and data ``b = W x`` give the
+    residual ``e = P_perp b`` (``P_perp = I - A A^+``, reduced QR ``A = Q R``).  Its
+    Jacobian, column ``j`` (Golub & Pereyra 1973, full form; complex linear parameters,
+    real ``theta``):
+
+    .. math::  \\partial e / \\partial \\theta_j = -P_\\perp (\\partial_j A) c - (A^+)^H (\\partial_j A)^H e
+
+    with ``c = A^+ b`` and ``(A^+)^H = Q R^{-H}``; only the column of the mode that
+    ``theta_j`` belongs to depends on it.
+    """
+
+    def __init__(self, speeds, data, roots, n_modes: int, ref: float, residual: bool) -> None:
+        n_max = max(s.size for s in speeds)
+        n_p = len(speeds)
+        self.mask = np.arange(n_max)[None, :] < np.array([s.size for s in speeds])[:, None]
+        self.speed = np.ones((n_p, n_max))
+        self.w = np.zeros((n_p, n_max))
+        self.b = np.zeros((n_p, n_max), dtype=complex)
+        for p, (s, x, w) in enumerate(zip(speeds, data, roots, strict=True)):
+            self.speed[p, : s.size] = s
+            self.w[p, : s.size] = w
+            self.b[p, : s.size] = x * w
+        self.n_modes, self.ref, self.residual = n_modes, ref, residual
+        self._theta: NDArray | None = None
+        self._compressed_theta: NDArray | None = None
+
+    def _params(self, theta: NDArray) -> tuple[NDArray, NDArray]:
+        return self.ref * np.exp(theta[: self.n_modes]), np.exp(theta[self.n_modes :])
+
+    def solve(self, theta: NDArray) -> None:
+        """Projection at ``theta`` (cached): residual ``e``, coefficients ``c``, ``Q``, ``R``."""
+        if self._theta is not None and np.array_equal(theta, self._theta):
+            return
+        wn, zeta = self._params(theta)
+        a = _basis(self.speed, wn, zeta, self.ref, self.residual) * self.w[..., None]
+        q, r = np.linalg.qr(a)
+        qh = np.conj(q.transpose(0, 2, 1))
+        qb = qh @ self.b[..., None]
+        self.coef = np.linalg.solve(r, qb)[..., 0]
+        self.e = self.b - (q @ qb)[..., 0]
+        self.q, self.qh, self.r = q, qh, r
+        self._theta = np.array(theta, copy=True)
+
+    def residual_vector(self, theta: NDArray) -> NDArray:
+        """Stacked real and imaginary parts of every probe's weighted residual."""
+        self.solve(theta)
+        e = self.e[self.mask]
+        return np.concatenate([e.real, e.imag])
+
+    def complex_jacobian(self, theta: NDArray) -> NDArray:
+        """``d e / d theta`` per probe, shape ``(probes, points, parameters)`` (class notes)."""
+        self.solve(theta)
+        wn, zeta = self._params(theta)
+        k = self.n_modes
+        d_wn, d_z = _basis_derivatives(self.speed, wn, zeta)
+        d = np.concatenate([d_wn, d_z], axis=-1) * self.w[..., None]  # (P, N, 2K)
+        col = np.concatenate([np.arange(k), np.arange(k)])
+        dc = d * self.coef[:, None, col]
+        proj = dc - self.q @ (self.qh @ dc)
+        # (A^+)^H e_k = Q R^{-H} e_k for the column k of each parameter
+        g = (self.q @ np.conj(np.linalg.inv(self.r).transpose(0, 2, 1)))[:, :, col]
+        scal = (self.e[:, None, :].conj() @ d)[:, 0, :].conj()
+        return -(proj + g * scal[:, None, :])
+
+    def compressed(self, theta: NDArray) -> tuple[NDArray, NDArray]:
+        """An ``n + 1`` row residual and Jacobian with the same ``f^T f``, ``J^T J``, ``J^T f``.
+
+        ``J^T J = V diag(s^2) V^T`` gives ``J~ = [diag(s) V^T; 0]`` and
+        ``f~ = [diag(1/s) V^T J^T f; sqrt(f^T f - |.|^2)]``.  A Gauss-Newton trust-region
+        step depends on the residual and Jacobian only through these three (the step solves
+        ``min |J p + f|`` within the region), so the optimiser takes the same steps on a
+        problem of ``n + 1`` rows instead of twice the number of points.
+        """
+        if self._compressed_theta is not None and np.array_equal(theta, self._compressed_theta):
+            return self._compressed
+        jac = self.complex_jacobian(theta).reshape(-1, theta.size)
+        e = self.e.reshape(-1)
+        # plain loops (einsum) rather than BLAS: a threaded GEMM of this long, thin shape
+        # costs more in thread hand-over than it saves
+        stacked = np.concatenate([jac.real, jac.imag])
+        f_full = np.concatenate([e.real, e.imag])
+        gram = np.einsum("ni,nj->ij", stacked, stacked)
+        grad = np.einsum("ni,n->i", stacked, f_full)
+        ff = float(np.vdot(e, e).real)
+        s2, v = np.linalg.eigh(gram)
+        s = np.sqrt(np.clip(s2, 0.0, None))
+        keep = s > s.max() * 1e-12
+        top = np.where(keep, (v.T @ grad) / np.where(keep, s, 1.0), 0.0)
+        rest = math.sqrt(max(ff - float(top @ top), 0.0))
+        f = np.append(top, rest)
+        j = np.vstack([s[:, None] * v.T, np.zeros((1, theta.size))])
+        self._compressed_theta = np.array(theta, copy=True)
+        self._compressed = (f, j)
+        return f, j
 
 
 def fit_modes(
@@ -175,25 +286,14 @@ def fit_modes(
     speeds = [np.asarray(c[1], dtype=float) for c in curves]
     data = [np.asarray(c[2], dtype=complex) for c in curves]
 
-    def solve(theta: NDArray) -> tuple[NDArray, list[NDArray]]:
-        wn = ref * np.exp(theta[:n_modes])
-        zeta = np.exp(theta[n_modes:])
-        res, coefs = [], []
-        for s, x, w in zip(speeds, data, roots, strict=True):
-            phi = _basis(s, wn, zeta, ref, residual_terms)
-            coef, *_ = np.linalg.lstsq(phi * w[:, None], x * w, rcond=None)
-            e = (x - phi @ coef) * w
-            res.append(e)
-            coefs.append(coef)
-        e = np.concatenate(res)
-        return np.concatenate([e.real, e.imag]), coefs
-
+    proj = _Projection(speeds, data, roots, n_modes, ref, residual_terms)
     try:
-        sol = least_squares(lambda t: solve(t)[0], theta0, bounds=(lower, upper), method="trf",
+        sol = least_squares(lambda t: proj.compressed(t)[0], theta0, jac=lambda t: proj.compressed(t)[1], bounds=(lower, upper), method="trf",
                             x_scale=np.full(theta0.size, 0.05), max_nfev=400)
     except (ValueError, np.linalg.LinAlgError) as exc:  # pragma: no cover - numerical failure
         raise FitError(f"modal fit failed: {exc}") from exc
-    resid, coefs = solve(sol.x)
+    resid = proj.residual_vector(sol.x)
+    coefs = list(proj.coef)
     ssr = float(resid @ resid)
     dof = 2 * n_points - n_real_params
     s2 = ssr / dof

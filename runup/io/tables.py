@@ -651,7 +651,10 @@ def _probe_names(arr: pa.Array, col: _Column, *, file: str) -> NDArray[np.object
             column=col.source,
             row=int(np.argmax(empty)) + 1,
         )
-    return arr.to_numpy(zero_copy_only=False).astype(object)
+    # names via the dictionary of distinct values: one Python string per probe, not per row
+    encoded = pc.dictionary_encode(arr)
+    names = encoded.dictionary.to_numpy(zero_copy_only=False).astype(object)
+    return names[encoded.indices.to_numpy(zero_copy_only=False)]
 
 
 def _samples(layout: _Layout, arrays: Mapping[int, pa.Array], *, file: str) -> pd.DataFrame:

@@ -13,8 +13,6 @@ from __future__ import annotations
 
 import json
 import os
-import tempfile
-from collections.abc import Callable
 from pathlib import Path
 
 import numpy as np
@@ -24,22 +22,11 @@ import pyarrow.parquet as pq
 from .._version import __version__
 from ..errors import DataFormatError
 from ..run import Run
+from .atomic import atomic_write
 
 __all__ = ["write_run"]
 
 _FORMATS = {".csv": "csv", ".parquet": "parquet", ".pq": "parquet"}
-
-
-def _atomic(path: Path, write: Callable[[str], None]) -> None:
-    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
-    os.close(fd)
-    try:
-        write(tmp)
-        os.chmod(tmp, 0o644)  # mkstemp creates 0600; a run file is an ordinary file
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
 
 
 def _toml_str(value: str) -> str:
@@ -100,13 +87,13 @@ def write_run(run: Run, path: str | os.PathLike[str], *, sidecar: bool = True) -
         df = df.drop(columns="time_s")
     try:
         if kind == "csv":
-            _atomic(out, lambda tmp: df.to_csv(tmp, index=False))  # floats as repr: exact round trip
+            atomic_write(out, lambda tmp: df.to_csv(tmp, index=False))  # floats as repr: exact round trip
         else:
             table = pa.Table.from_pandas(df, preserve_index=False)
-            _atomic(out, lambda tmp: pq.write_table(table, tmp))
+            atomic_write(out, lambda tmp: pq.write_table(table, tmp))
         if sidecar:
             text = _sidecar_text(run)
-            _atomic(out.with_suffix(".toml"), lambda tmp: Path(tmp).write_text(text, encoding="utf-8"))
+            atomic_write(out.with_suffix(".toml"), lambda tmp: Path(tmp).write_text(text, encoding="utf-8"))
     except OSError as exc:
         raise DataFormatError(
             f"cannot write run file ({exc.strerror or type(exc).__name__}); check the folder",
