@@ -236,9 +236,9 @@ def find_spikes(
     Returns
     -------
     spike : numpy.ndarray of bool
-        True for the points to remove.  The two endpoints are never flagged.
+        True for the points to remove.
     score : numpy.ndarray of float
-        Deviation of each point in noise sigmas (0 at the endpoints).
+        Deviation of each flagged or interior point in noise sigmas.
 
     Notes
     -----
@@ -254,6 +254,11 @@ def find_spikes(
 
     The second rule keeps resonance peaks on sparse data: on the modal circle a peak
     sampled at spacing ``h`` in frequency ratio scores ``h / (2 zeta)``.
+
+    A second pass applies the same two rules to two consecutive points against the line
+    through their outer neighbours, and to the first and last one or two points against the
+    line through the next two points (extrapolated; the change across them is scaled by the
+    extrapolation distance), on curves of at least six points.
     """
     s = np.asarray(speed_rpm, dtype=float)
     x = np.asarray(response_um_pp, dtype=complex)
@@ -268,7 +273,60 @@ def find_spikes(
     score[1:-1] = d / sigma
     across = np.abs(x[2:] - x[:-2])
     spike[1:-1] = (score[1:-1] > threshold) & (d > ISOLATION_RATIO * across)
+    if x.size >= 6:
+        _pairs_and_ends(s, x, np.concatenate([[sigma[0]], sigma, [sigma[-1]]]), threshold, spike, score)
     return spike, score
+
+
+def _pairs_and_ends(
+    s: NDArray[np.float64],
+    x: NDArray[np.complex128],
+    sigma: NDArray[np.float64],
+    threshold: float,
+    spike: NDArray[np.bool_],
+    score: NDArray[np.float64],
+) -> None:
+    """Second pass of :func:`find_spikes` (in place): two consecutive glitches, and glitches
+    at the ends of a curve, judged by the same two rules against the line through the
+    nearest two good points (interpolated across a pair, extrapolated at an end)."""
+
+    def judge(idx: list[int], a: int, b: int) -> None:
+        if spike[a] or spike[b] or any(spike[i] for i in idx):
+            return
+        slope = (x[b] - x[a]) / (s[b] - s[a])
+        dev = np.array([abs(x[i] - (x[a] + slope * (s[i] - s[a]))) for i in idx])
+        change = abs(x[b] - x[a]) * max(1.0, max(abs(s[i] - s[a]) for i in idx) / abs(s[b] - s[a]))
+        # the local scale at an end is itself inflated by the glitch: use the curve's median
+        # scale, widened for extrapolation: x_i - [x_a + t (x_b - x_a)] has variance
+        # (1 + (1 - t)^2 + t^2) sigma_point^2 against 1.5 sigma_point^2 for the interior rule
+        t = np.array([(s[i] - s[a]) / (s[b] - s[a]) for i in idx])
+        sig = float(np.median(sigma)) * np.sqrt((1.0 + (1.0 - t) ** 2 + t**2) / 1.5)
+        if np.all(dev > threshold * sig) and np.all(dev > ISOLATION_RATIO * change):
+            for i, d_i, g in zip(idx, dev, sig, strict=True):
+                spike[i] = True
+                score[i] = d_i / g
+
+    n = x.size
+    judge([0, 1], 2, 3)  # the first two points, extrapolated from the next two
+    judge([n - 2, n - 1], n - 4, n - 3)
+    judge([0], 1, 2)  # the first point alone
+    judge([n - 1], n - 3, n - 2)
+    # interior pairs: both points stand off the line through their outer neighbours
+    w1 = (s[1:-2] - s[:-3]) / (s[3:] - s[:-3])
+    w2 = (s[2:-1] - s[:-3]) / (s[3:] - s[:-3])
+    d1 = np.abs(x[1:-2] - (x[:-3] + w1 * (x[3:] - x[:-3])))
+    d2 = np.abs(x[2:-1] - (x[:-3] + w2 * (x[3:] - x[:-3])))
+    across = np.abs(x[3:] - x[:-3])
+    sig = np.maximum(sigma[1:-2], sigma[2:-1])
+    pair = (np.minimum(d1, d2) > threshold * sig) & (np.minimum(d1, d2) > ISOLATION_RATIO * across)
+    # overlapping candidates (a good point beside a bad pair also stands off its line): take
+    # the strongest first, then those that do not touch it
+    ranked = sorted(np.nonzero(pair)[0], key=lambda k: -float(min(d1[k], d2[k]) / sig[k]))
+    for k in ranked:
+        i = int(k) + 1
+        if not (spike[i - 1] or spike[i] or spike[i + 1] or spike[i + 2]):
+            spike[i] = spike[i + 1] = True
+            score[i], score[i + 1] = d1[k] / sig[k], d2[k] / sig[k]
 
 
 # --------------------------------------------------------------------------- slow roll

@@ -79,6 +79,9 @@ class Candidate:
     bandwidth_rpm
         Half-power bandwidth ``N_2 - N_1`` of an amplitude peak on this probe (``nan`` when
         a half-power point is missing).
+    peak_samples
+        Contiguous samples at or above 0.707 of the peak, the peak included (0 for
+        phase-only evidence).
     """
 
     probe: str
@@ -90,6 +93,7 @@ class Candidate:
     prominence_sigmas: float
     phase_rise_deg: float
     bandwidth_rpm: float = math.nan
+    peak_samples: int = 0
 
 
 @dataclass(frozen=True)
@@ -165,8 +169,14 @@ def find_candidates(curve: Curve) -> tuple[Candidate, ...]:
         hp = half_power(curve.speed_rpm, amp, peak_index=int(idx))
         # only a two-sided band is a width; a one-sided one may run to a neighbouring mode
         width = hp.bandwidth_rpm if hp.bandwidth_rpm is not None else math.nan
+        level = amp[idx] / math.sqrt(2.0)
+        below = np.nonzero(amp[:idx] < level)[0]
+        above = np.nonzero(amp[idx + 1 :] < level)[0]
+        first = below[-1] + 1 if below.size else 0
+        last = idx + above[0] if above.size else amp.size - 1
         found.append(
-            Candidate(curve.probe, curve.order, curve.segment, s, evidence, int(idx), float(prom / floor), rise, width)
+            Candidate(curve.probe, curve.order, curve.segment, s, evidence, int(idx), float(prom / floor), rise,
+                      width, int(last - first + 1))
         )
     # phase evidence: local maxima of the rise that are not near an amplitude peak
     if p_speed.size >= 3 and np.isfinite(p_rise).any():

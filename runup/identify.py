@@ -51,7 +51,13 @@ from .fit.circle import CircleFit, circle_fit
 from .fit.half_power import HalfPower, half_power
 from .fit.modal import ModalFit, fit_modes
 from .fit.models import damping_from_amplification_factor, peak_speed_ratio
-from .fit.selection import mode_is_plausible, mode_is_significant, peak_to_noise, select_modes
+from .fit.selection import (
+    mode_is_plausible,
+    mode_is_significant,
+    peak_to_noise,
+    select_modes,
+    select_residual,
+)
 from .geometry import probe_pairs
 from .review import EMPTY_REVIEW, Review
 from .run import ConditionedRun, Curve, Run
@@ -139,9 +145,10 @@ def identify_conditioned(conditioned: ConditionedRun, *, review: Review | None =
     for (segment, order), curves in sorted(groups.items()):
         label = f"segment {segment + 1}, order {order}X"
         candidates = [c for curve in curves for c in find_candidates(curve)]
-        modes = list(consolidate(candidates))
-        modes = _with_review_additions(modes, review, segment, order)
-        found, notes = _identify_group(curves, modes, review, pairs)
+        modes = _with_review_additions(list(consolidate(candidates)), review, segment, order)
+        notes: list[str] = []
+        found, fit_notes = _identify_group(curves, modes, review, pairs)
+        notes.extend(fit_notes)
         kept = []
         for c in found:
             entry = next((e for e in review.of("reject") if e.matches(c.speed_rpm, segment=segment, order=order)), None)
@@ -331,7 +338,7 @@ def _fit_cluster(curves: Sequence[Curve], cluster: list[Start]) -> tuple[list[Cr
             break
         # modes the residual asks for first: an unresolved neighbour (a split pair, say)
         # inflates the residual and can make a true mode look insignificant
-        selection = select_modes(data, weights, fit, noise_rms_um_pp=sigma)
+        selection = select_modes(data, weights, select_residual(data, weights, fit), noise_rms_um_pp=sigma)
         fit = selection.fit
         base = [k for k in range(len(fit.modes)) if k not in selection.added]
         # base modes and active starts are both in ascending speed; a mode must stay in its own window
@@ -370,15 +377,35 @@ def _fit_cluster(curves: Sequence[Curve], cluster: list[Start]) -> tuple[list[Cr
                 "(not significant above noise, or not inside its window); not reported"
             )
             continue
-        critical = critical_from_fallback(drop)
+        critical, why = _confirmed_fallback(drop)
         if critical is None:
-            notes.append(f"candidate near {drop.mode.speed_rpm:.0f} rpm could not be fitted; not reported")
+            notes.append(why)
         else:
             found.append(critical)
     for start in active:  # the fit itself failed
-        critical = None if start.mode.evidence == "phase" else critical_from_fallback(start)
+        critical, why = _confirmed_fallback(start)
         if critical is None:
-            notes.append(f"candidate near {start.mode.speed_rpm:.0f} rpm could not be fitted; not reported")
+            notes.append(why)
         else:
             found.append(critical)
     return found, notes
+
+
+def _confirmed_fallback(start: Start) -> tuple[Critical | None, str]:
+    """The circle-fit or half-power fall-back of a candidate the modal fit could not confirm.
+
+    Reported only with independent support: an amplitude peak and a phase rise (evidence
+    ``peak+phase``) with the peak at least three samples wide above 0.707 of its height on
+    some probe, or an engineer's review.  A peak the fit of all probes cannot confirm that
+    is one or two samples wide, or shows no phase rise, is what an acquisition glitch looks
+    like.
+    """
+    where = f"candidate near {start.mode.speed_rpm:.0f} rpm"
+    wide = any(m.peak_samples >= 3 for m in start.mode.members)
+    if (start.mode.evidence != "peak+phase" or not wide) and start.review_reason is None:
+        return None, (
+            f"{where} ({start.mode.evidence} evidence, peak {'wide' if wide else 'one or two samples wide'}) "
+            "not confirmed by the modal fit of all probes; not reported (a review [[accept]] can keep it)"
+        )
+    critical = critical_from_fallback(start)
+    return critical, "" if critical is not None else f"{where} could not be fitted; not reported"

@@ -346,13 +346,13 @@ def test_injected_spikes_are_removed_and_recorded():
     assert cr.curve("A").speed_rpm.size == 500 - where.size
 
 
-def test_endpoint_spike_is_left_alone():
-    """Endpoints are never despiked (documented: no one-sided rule)."""
+def test_endpoint_spike_is_removed_by_the_one_sided_rule():
+    """An endpoint glitch is judged against the line through the next two points (docs/conditioning.md)."""
     speed = np.linspace(200.0, 6000.0, 100)
     x = jeffcott(speed) + RUNOUT
     x[0] = 50.0
     spike, _ = find_spikes(speed, x)
-    assert not spike.any()
+    assert list(np.nonzero(spike)[0]) == [0]
 
 
 @pytest.mark.parametrize("zeta", [0.01, 0.02, 0.05])
@@ -403,3 +403,25 @@ def test_settings_are_recorded_and_bad_options_rejected():
         condition(run, slow_roll="automatic")
     with pytest.raises(DataFormatError, match="min_points"):
         condition(run, min_points=1)
+
+
+def test_glitches_at_the_ends_and_in_pairs_are_removed_but_an_edge_resonance_is_kept():
+    """One-sided and paired glitches (3-10x the local amplitude, random phase) are removed; a
+    lightly damped mode peaking near the top of the record is not (Jeffcott closed form, Rao 2011)."""
+    from runup.conditioning import find_spikes
+    from runup.fit.models import unbalance_response
+
+    rng = np.random.default_rng(41)
+    speed = np.linspace(300.0, 6000.0, 400)
+    x = unbalance_response(speed, natural_speed_rpm=3000.0, damping_ratio=0.05, modal_constant=10.0) + (2 + 1j)
+    x = x + 0.05 * (rng.standard_normal(400) + 1j * rng.standard_normal(400))
+    bad = x.copy()
+    for i in (0, 398, 399, 150, 151):  # an end, an end pair, an interior pair
+        bad[i] = 8 * abs(x[i]) * np.exp(1j * rng.uniform(0, 2 * np.pi))
+    spike, _ = find_spikes(speed, bad)
+    assert set(np.nonzero(spike)[0]) == {0, 398, 399, 150, 151}
+    # a mode whose peak is one sample from the top of the record, sampled every 0.5 %
+    edge_speed = np.linspace(1000.0, 3010.0, 400)
+    edge = unbalance_response(edge_speed, natural_speed_rpm=3000.0, damping_ratio=0.02, modal_constant=10.0)
+    spike, _ = find_spikes(edge_speed, edge)
+    assert not spike.any()

@@ -25,6 +25,7 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Literal
 
 import numpy as np
 from numpy.typing import NDArray
@@ -82,6 +83,8 @@ class ModalFit:
         Sum of squared complex residuals (weighted), um^2.
     n_parameters
         Real parameters fitted (nonlinear and linear).
+    residual_model
+        The ``residual_terms`` the fit used.
     """
 
     modes: tuple[ModeEstimate, ...]
@@ -95,6 +98,7 @@ class ModalFit:
     converged: bool
     ssr_um2: float = math.nan
     n_parameters: int = 0
+    residual_model: str = "constant+quadratic"
 
     def predict(self, probe: str, speed_rpm: NDArray[np.float64]) -> NDArray[np.complex128]:
         """Fitted complex response of one probe at the given speeds (um pp)."""
@@ -108,14 +112,19 @@ class ModalFit:
         return out + b + c * (s / self.reference_rpm) ** 2
 
 
-def _basis(speed: NDArray, wn: NDArray, zeta: NDArray, ref: float, residual: bool) -> NDArray:
-    """Model columns at ``speed`` (any leading shape): modes, then ``1`` and ``s^2``."""
+Residual = Literal["none", "constant", "constant+quadratic"]
+
+
+def _basis(speed: NDArray, wn: NDArray, zeta: NDArray, ref: float, residual: Residual) -> NDArray:
+    """Model columns at ``speed`` (any leading shape): modes, then ``1`` and ``s^2`` as asked."""
     r = speed[..., None] / wn
     cols = r**2 / (1.0 - r**2 + 2j * zeta * r)
-    if residual:
-        s2 = (speed / ref) ** 2
-        cols = np.concatenate([cols, np.ones_like(cols[..., :1]), s2[..., None].astype(complex)], axis=-1)
-    return cols
+    extra = []
+    if residual != "none":
+        extra.append(np.ones_like(cols[..., :1]))
+    if residual == "constant+quadratic":
+        extra.append(((speed / ref) ** 2)[..., None].astype(complex))
+    return np.concatenate([cols, *extra], axis=-1) if extra else cols
 
 
 def _basis_derivatives(speed: NDArray, wn: NDArray, zeta: NDArray) -> tuple[NDArray, NDArray]:
@@ -143,7 +152,7 @@ class _Projection:
     ``theta_j`` belongs to depends on it.
     """
 
-    def __init__(self, speeds, data, roots, n_modes: int, ref: float, residual: bool) -> None:
+    def __init__(self, speeds, data, roots, n_modes: int, ref: float, residual: Residual) -> None:
         n_max = max(s.size for s in speeds)
         n_p = len(speeds)
         self.mask = np.arange(n_max)[None, :] < np.array([s.size for s in speeds])[:, None]
@@ -232,7 +241,7 @@ def fit_modes(
     curves: Sequence[tuple[str, NDArray[np.float64], NDArray[np.complex128]]],
     *,
     initial: Sequence[tuple[float, float]],
-    residual_terms: bool = True,
+    residual_terms: Residual = "constant+quadratic",
     weights: Sequence[NDArray[np.float64]] | None = None,
 ) -> ModalFit:
     """Fit shared modes to the complex responses of one or more probes.
@@ -245,7 +254,8 @@ def fit_modes(
     initial
         Starting ``(natural_speed_rpm, damping_ratio)`` per mode.
     residual_terms
-        Include ``B_p + C_p s^2`` (see module notes).
+        Which residual terms each probe gets: ``"constant+quadratic"`` (``B_p + C_p s^2``,
+        see module notes), ``"constant"`` (``B_p``) or ``"none"``.
     weights
         Per curve, the number of samples each point averages (binned data); residuals
         are weighted by its square root so that the fit and its covariance equal those of
@@ -263,7 +273,9 @@ def fit_modes(
     if not initial:
         raise FitError("fit_modes needs at least one starting mode")
     n_modes = len(initial)
-    n_lin = n_modes + (2 if residual_terms else 0)
+    if residual_terms not in ("none", "constant", "constant+quadratic"):
+        raise ValueError(f"residual_terms must be 'none', 'constant' or 'constant+quadratic', got {residual_terms!r}")
+    n_lin = n_modes + {"none": 0, "constant": 1, "constant+quadratic": 2}[residual_terms]
     if weights is None:
         weights = [np.ones(len(c[1])) for c in curves]
     roots = [np.sqrt(np.asarray(w, dtype=float)) for w in weights]
@@ -317,7 +329,11 @@ def fit_modes(
         for k in order
     )
     residual = tuple(
-        (complex(c[n_modes]), complex(c[n_modes + 1])) if residual_terms else (0j, 0j) for c in coefs
+        (
+            complex(c[n_modes]) if residual_terms != "none" else 0j,
+            complex(c[n_modes + 1]) if residual_terms == "constant+quadratic" else 0j,
+        )
+        for c in coefs
     )
     return ModalFit(
         modes=modes,
@@ -331,4 +347,5 @@ def fit_modes(
         converged=bool(sol.success),
         ssr_um2=ssr,
         n_parameters=n_real_params,
+        residual_model=residual_terms,
     )

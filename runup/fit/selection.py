@@ -22,7 +22,8 @@ at the peak of the summed residual, and keeps the best K + 1 fit when
   stability across model variations in modal parameter estimation; Peeters et al.,
   Shock and Vibration 11, 2004).
 
-At most two modes are added per window.  Each kept mode says why.
+At most two modes are added per window.  Each kept mode says why.  The residual term
+``C s^2`` is itself kept only when it lowers the BIC (:func:`select_residual`).
 """
 
 from __future__ import annotations
@@ -45,6 +46,7 @@ __all__ = [
     "mode_is_significant",
     "peak_to_noise",
     "select_modes",
+    "select_residual",
 ]
 
 #: Reduced chi-square above which more modes are tried.
@@ -154,7 +156,7 @@ def _stable(fit: ModalFit, data: Data, weights: Sequence[NDArray], starts: list[
     if not narrow:
         return False
     try:
-        refit = fit_modes(narrow, initial=starts, weights=narrow_w)
+        refit = fit_modes(narrow, initial=starts, weights=narrow_w, residual_terms=fit.residual_model)  # type: ignore[arg-type]
     except FitError:
         return False
     for a, b in zip(fit.modes, refit.modes, strict=True):
@@ -163,6 +165,31 @@ def _stable(fit: ModalFit, data: Data, weights: Sequence[NDArray], starts: list[
         if abs(b.damping_ratio / a.damping_ratio - 1) > 0.35:
             return False
     return True
+
+
+def select_residual(
+    data: Data, weights: Sequence[NDArray[np.float64]], base: ModalFit
+) -> ModalFit:
+    """The fit with or without the ``C s^2`` residual term, whichever has the lower BIC.
+
+    For a broad (heavily damped) mode the quadratic term can mimic part of the mode and
+    leave natural speed and damping poorly determined; when the data do not need it, the
+    criterion drops it (same BIC as for the number of modes).
+    """
+    if base.residual_model != "constant+quadratic":
+        return base
+    try:
+        simpler = fit_modes(
+            data,
+            initial=[(m.natural_speed_rpm, m.damping_ratio) for m in base.modes],
+            weights=weights,
+            residual_terms="constant",
+        )
+    except FitError:
+        return base
+    if not _acceptable(simpler):
+        return base
+    return simpler if bic(simpler) < bic(base) else base
 
 
 def select_modes(
@@ -198,7 +225,7 @@ def select_modes(
         best: tuple[float, ModalFit, list[tuple[float, float]]] | None = None
         for starts in _trial_starts(fit, data, weights):
             try:
-                trial = fit_modes(data, initial=starts, weights=weights)
+                trial = fit_modes(data, initial=starts, weights=weights, residual_terms=fit.residual_model)  # type: ignore[arg-type]
             except FitError:
                 continue
             if not _acceptable(trial):
