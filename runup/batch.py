@@ -12,10 +12,11 @@ are the same whichever executor runs them, listed in input order.
 
 from __future__ import annotations
 
+import contextlib
 import glob
 import multiprocessing
 import os
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from dataclasses import dataclass
 from pathlib import Path
@@ -150,14 +151,36 @@ def _local(paths: Sequence[str], options: BatchOptions, workers: int,
             if on_result is not None:
                 on_result(item)
         return done
-    # spawn: a forked child of a threaded parent (pyarrow, rich) may deadlock
-    with ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("spawn")) as pool:
+    # spawn: a forked child of a threaded parent (pyarrow, rich) may deadlock.  One math
+    # thread per worker: the workers are the parallelism; BLAS threads on top of them only
+    # oversubscribe the cores (children read these variables when numpy loads).
+    with _single_threaded_children(), ProcessPoolExecutor(
+        max_workers=workers, mp_context=multiprocessing.get_context("spawn")
+    ) as pool:
         futures = {pool.submit(process_run, p, options): p for p in paths}
         for fut in as_completed(futures):
             done[futures[fut]] = item = fut.result()
             if on_result is not None:
                 on_result(item)
     return done
+
+
+_THREAD_VARIABLES = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
+
+
+@contextlib.contextmanager
+def _single_threaded_children() -> Iterator[None]:
+    """Set the math-library thread counts to 1 for processes started inside the block."""
+    saved = {k: os.environ.get(k) for k in _THREAD_VARIABLES}
+    os.environ.update(dict.fromkeys(_THREAD_VARIABLES, "1"))
+    try:
+        yield
+    finally:
+        for k, v in saved.items():
+            if v is None:
+                os.environ.pop(k, None)
+            else:
+                os.environ[k] = v
 
 
 def _dask(paths: Sequence[str], options: BatchOptions, workers: int, address: str | None,
