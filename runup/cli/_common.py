@@ -64,6 +64,10 @@ ReviewOpt = Annotated[
     Path | None, typer.Option("--review", help="Review TOML: accept, reject or add criticals, each with a reason.")
 ]
 JsonOpt = Annotated[Path | None, typer.Option("--json", help="Write the results as JSON to this file ('-' for stdout).")]
+PredictedOpt = Annotated[Path | None, typer.Option("--predicted", help="Predicted criticals: CSV, TOML or JSON.")]
+MapOpt = Annotated[Path | None, typer.Option("--map", help="Predicted critical speed map (CSV), if not in the file.")]
+MachineIdOpt = Annotated[str | None, typer.Option("--machine-id", help="Machine id (overrides the sidecar).")]
+RunIdOpt = Annotated[str | None, typer.Option("--run-id", help="Run id (overrides the sidecar).")]
 
 
 @dataclass(frozen=True)

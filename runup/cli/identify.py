@@ -7,9 +7,7 @@ import math
 import sys
 from collections import Counter
 from pathlib import Path
-from typing import Annotated
 
-import typer
 from rich.console import Console
 from rich.table import Table
 
@@ -20,11 +18,13 @@ from . import app
 from ._common import (
     ColumnOpt,
     JsonOpt,
+    MachineIdOpt,
     NoDespikeOpt,
     NoSidecarOpt,
     NoSlowRollOpt,
     ReviewOpt,
     RunFile,
+    RunIdOpt,
     RunOptions,
     SidecarOpt,
     SlowRollOpt,
@@ -137,8 +137,8 @@ def identify(
     no_slow_roll: NoSlowRollOpt = False,
     no_despike: NoDespikeOpt = False,
     review: ReviewOpt = None,
-    machine_id: Annotated[str | None, typer.Option(help="Machine id (overrides the sidecar).")] = None,
-    run_id: Annotated[str | None, typer.Option(help="Run id (overrides the sidecar).")] = None,
+    machine_id: MachineIdOpt = None,
+    run_id: RunIdOpt = None,
 ) -> None:
     """Identify critical speeds, damping and amplification factors in one run.
 

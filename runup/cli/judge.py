@@ -30,6 +30,7 @@ from ._common import (
     EXIT_RULE_FAILED,
     ColumnOpt,
     JsonOpt,
+    MapOpt,
     NoDespikeOpt,
     NoSidecarOpt,
     NoSlowRollOpt,
@@ -134,9 +135,7 @@ def _render_agreement(agreement: Agreement, stiffness: StiffnessEstimate | None)
 def compare_command(
     run_file: RunFile,
     predicted: Annotated[Path, typer.Option("--predicted", help="Predicted criticals: CSV, TOML or JSON.")],
-    speed_map: Annotated[
-        Path | None, typer.Option("--map", help="Predicted undamped critical speed map (CSV), if not in the file.")
-    ] = None,
+    speed_map: MapOpt = None,
     segment: Annotated[int | None, typer.Option(help="Speed segment to compare (0-based) when the run has several.")] = None,
     tolerance: Annotated[float, typer.Option(min=0.1, max=50.0, help="Speed tolerance, % (default 5).")] = 5.0,
     json_out: JsonOpt = None,

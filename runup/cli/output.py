@@ -38,11 +38,15 @@ from ..reporting import (
 from . import app
 from ._common import (
     ColumnOpt,
+    MachineIdOpt,
+    MapOpt,
     NoDespikeOpt,
     NoSidecarOpt,
     NoSlowRollOpt,
+    PredictedOpt,
     ReviewOpt,
     RunFile,
+    RunIdOpt,
     RunOptions,
     SidecarOpt,
     SlowRollOpt,
@@ -53,11 +57,7 @@ from ._common import (
     out,
 )
 
-PredictedOpt = Annotated[Path | None, typer.Option("--predicted", help="Predicted criticals: CSV, TOML or JSON.")]
-MapOpt = Annotated[Path | None, typer.Option("--map", help="Predicted critical speed map (CSV), if not in the file.")]
 RulesOpt = Annotated[str | None, typer.Option("--rules", help="Rule set name or rule TOML: shade or judge margins.")]
-MachineOpt = Annotated[str | None, typer.Option(help="Machine id (overrides the sidecar).")]
-RunIdOpt = Annotated[str | None, typer.Option(help="Run id (overrides the sidecar).")]
 
 
 @contextmanager
@@ -127,7 +127,7 @@ def plot(
     no_slow_roll: NoSlowRollOpt = False,
     no_despike: NoDespikeOpt = False,
     review: ReviewOpt = None,
-    machine_id: MachineOpt = None,
+    machine_id: MachineIdOpt = None,
     run_id: RunIdOpt = None,
 ) -> None:
     """Draw a Bode, polar, measured-against-predicted or critical speed map plot of one run.
@@ -164,7 +164,7 @@ def report(
     no_slow_roll: NoSlowRollOpt = False,
     no_despike: NoDespikeOpt = False,
     review: ReviewOpt = None,
-    machine_id: MachineOpt = None,
+    machine_id: MachineIdOpt = None,
     run_id: RunIdOpt = None,
 ) -> None:
     """Write one report of a run: provenance, criticals, verdicts, comparison, plots, methods.
