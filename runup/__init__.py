@@ -12,6 +12,7 @@ purchase specification, the applicable standards, local codes and licensed pract
 """
 
 from ._version import __version__
+from .batch import BatchResult, run_batch
 from .compare import Agreement, compare
 from .conditioning import condition
 from .criteria import CheckResult, available_rule_sets, judge, load_rules
@@ -25,6 +26,7 @@ from .critical import (
     to_frame,
 )
 from .errors import DataFormatError, FitError, RunupError, UnitError
+from .fingerprint import Fingerprint, fingerprint
 from .identify import identify, identify_conditioned
 from .io import read_run
 from .io.predicted import Predicted, read_predicted
@@ -69,6 +71,10 @@ __all__ = [
     "estimate_support_stiffness",
     "StiffnessEstimate",
     "subtract",
+    "fingerprint",
+    "Fingerprint",
+    "run_batch",
+    "BatchResult",
     "Run",
     "RunMetadata",
     "Probe",
