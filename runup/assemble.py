@@ -225,7 +225,7 @@ def critical_from_fit(
     k: int,
     *,
     reason: str,
-    window: dict[str, tuple[np.ndarray, np.ndarray]],
+    window: dict[str, tuple[np.ndarray, np.ndarray, np.ndarray]],
     extra_flags: tuple[str, ...] = (),
 ) -> Critical:
     """The critical of mode ``k`` of ``fit``; ``reason`` says why the mode was kept."""
@@ -362,7 +362,8 @@ def merge_splits(criticals: list[Critical], pairs: Sequence[ProbePair]) -> list[
                     probes=tuple(dict.fromkeys(prev.probes + c.probes)),
                     flags=tuple(dict.fromkeys(strong.flags + ("split_critical",))),
                     notes=strong.notes + (note,),
-                    detail=tuple({d.probe: d for d in prev.detail + c.detail}.values()),
+                    # per-probe detail of the headline (stronger) branch; the other's where it has none
+                    detail=tuple({d.probe: d for d in (c.detail + prev.detail if strong is prev else prev.detail + c.detail)}.values()),
                     split=SplitPair(lo, hi),
                 )
                 out[-1] = merged

@@ -311,11 +311,22 @@ def _checks(
     return tuple(out)
 
 
-def _select(criticals: Sequence[Critical], segment: int | None) -> tuple[list[Critical], list[str]]:
+def _select(
+    criticals: Sequence[Critical], segment: int | None, *, split_pairs_predicted: bool
+) -> tuple[list[Critical], list[str]]:
     notes = []
     first = [c for c in criticals if c.order == 1]
     if len(first) < len(criticals):
         notes.append(f"{len(criticals) - len(first)} critical(s) of orders other than 1X ignored")
+    if any(c.split is not None for c in first):
+        if split_pairs_predicted:
+            notes.append("split criticals compared at both of their speeds (shapes shared by the two branches)")
+            first = [b for c in first for b in c.branches()]
+        else:
+            notes.append(
+                "split criticals compared at their headline speed: the prediction has no split pairs "
+                "(an isotropic model predicts one speed for the pair)"
+            )
     segments = sorted({c.segment for c in first})
     if segment is None:
         if len(segments) > 1:
@@ -375,7 +386,9 @@ def compare(
     for name, value in (("tolerance_percent", tolerance_percent), ("gate_percent", gate_percent)):
         if not (math.isfinite(value) and value > 0):
             raise DataFormatError(f"{name} must be a positive number, got {value!r}")
-    measured, notes = _select(criticals, segment)
+    measured, notes = _select(
+        criticals, segment, split_pairs_predicted=any(m.split_pair is not None for m in predicted.modes)
+    )
     modes = list(predicted.modes)
     tol = float(tolerance_percent)
     shapes_used = False

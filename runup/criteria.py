@@ -345,7 +345,10 @@ def _margin_verdict(c: Critical, op: OperatingSpeeds, rule: MarginRule) -> Margi
     if side != "inside_operating_range" and (
         interval is not None or c.amplification_factor_ci95 is not None
     ):
-        end = interval.high if side == "below_min_operating" else interval.low if interval else nc
+        if interval is None:
+            end = nc
+        else:
+            end = interval.high if side == "below_min_operating" else interval.low
         worst_m = _margin(side, end, mos, mcs)
         af_high = c.amplification_factor_ci95.high if c.amplification_factor_ci95 else af
         worst_r = _required_at(c, forms[0], af_high)
@@ -379,11 +382,14 @@ def check_margins(
     """Separation-margin verdict on every critical (empty when the set has no margin rule).
 
     The critical speed judged is the peak-response ``speed_rpm`` (API RP 684's ``N_c``);
-    missing operating speeds give verdicts "not evaluated" with the reason.
+    missing operating speeds give verdicts "not evaluated" with the reason.  A split
+    critical is judged at both of its speeds (each branch with its own AF and interval):
+    either branch may be the one nearer the operating range.
     """
     if rules.margin is None:
         return ()
-    return tuple(_margin_verdict(c, operating, rules.margin) for c in criticals)
+    return tuple(_margin_verdict(b, operating, rules.margin) for c in criticals for b in c.branches())
+
 
 
 def _at_speed(curve: Curve, speed_rpm: float) -> tuple[float, float]:

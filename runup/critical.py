@@ -11,6 +11,7 @@ half-power AF on the samples, its circle fit) stays in :class:`ProbeDetail`.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from collections.abc import Iterable
 from dataclasses import dataclass
@@ -205,6 +206,29 @@ class Critical:
     fit: ModalFit | None = None
     estimators: EstimatorTable | None = None
     split: SplitPair | None = None
+
+    def branches(self) -> tuple[Critical, ...]:
+        """This critical, or one critical per branch of a split critical.
+
+        Each branch carries its own speeds, damping, AF and natural-speed interval; the AF
+        interval is known only for the headline branch; per-probe detail is shared.  For
+        judging and comparison, where either speed of a split pair matters.
+        """
+        if self.split is None:
+            return (self,)
+        return tuple(
+            dataclasses.replace(
+                self,
+                speed_rpm=b.speed_rpm,
+                natural_speed_rpm=b.natural_speed_rpm,
+                damping_ratio=b.damping_ratio,
+                amplification_factor=b.amplification_factor,
+                natural_speed_ci95_rpm=b.natural_speed_ci95_rpm,
+                amplification_factor_ci95=self.amplification_factor_ci95 if b.speed_rpm == self.speed_rpm else None,
+                split=None,
+            )
+            for b in (self.split.lower, self.split.upper)
+        )
 
     @property
     def shaft_speed_rpm(self) -> float:

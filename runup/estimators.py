@@ -1,6 +1,8 @@
 """Amplification-factor estimators side by side, each with an uncertainty.
 
-For one critical, on its dominant probe (largest fitted peak response), runup computes
+For one critical, on its dominant probe (largest fitted peak response), with the fitted
+neighbouring modes and residual terms subtracted so that each single-mode estimator sees
+this mode alone (what each probe shows raw is in the per-probe detail), runup computes
 
 ``half_power``
     API 684 half-power AF on the samples (:mod:`runup.fit.half_power`);
@@ -20,8 +22,8 @@ For one critical, on its dominant probe (largest fitted peak response), runup co
 
 The uncertainty of the first three is a parametric bootstrap (Efron & Tibshirani, *An
 Introduction to the Bootstrap*, 1993, ch. 6): the estimator is re-run on ``n_boot`` copies
-of the fitted response at the measured speeds plus complex Gaussian noise of the fit's
-residual RMS; the standard deviation ``s`` of the replicates' log AF gives the interval
+of the fitted mode at the measured speeds plus complex Gaussian noise of the fit's
+per-sample residual RMS (divided by the square root of the samples a bin mean averages); the standard deviation ``s`` of the replicates' log AF gives the interval
 ``AF exp(+-1.96 s)`` (20 replicates: ``s`` to about 16 %, enough to flag disagreement).  Estimators *disagree* when
 their log-AF intervals, treated as normal, differ by more than 1.96 combined standard
 errors from the headline and by more than 10 % (``DISAGREE_MIN_FRACTION``).  The headline is the global fit when it was made (it uses every
@@ -156,7 +158,7 @@ def _estimates(speed: NDArray, x: NDArray, wn: float, zeta: float) -> tuple[floa
 def compare_estimators(
     fit: ModalFit,
     mode_index: int,
-    data: dict[str, tuple[NDArray[np.float64], NDArray[np.complex128]]],
+    data: dict[str, tuple[NDArray[np.float64], NDArray[np.complex128], NDArray[np.float64]]],
     *,
     af_ci95: tuple[float, float] | None,
     n_boot: int = 20,
@@ -171,7 +173,8 @@ def compare_estimators(
     mode_index
         Which of its modes.
     data
-        ``probe -> (speed_rpm, response_um_pp)`` of the fit window.
+        ``probe -> (speed_rpm, response_um_pp, samples_per_point)`` of the fit window
+        (points may be bin means, :mod:`runup.fit.binning`).
     af_ci95
         The global fit's AF interval.
     n_boot
@@ -183,10 +186,14 @@ def compare_estimators(
     wn, zeta = mode.natural_speed_rpm, mode.damping_ratio
     peaks = [abs(a) for a in mode.modal_constants_um_pp]
     probe = fit.probes[int(np.argmax(peaks))]
-    speed, x = data[probe]
-    # samples within the mode's own neighbourhood, as an engineer would read them
+    speed, x, counts = data[probe]
+    # points within the mode's own neighbourhood, with the fitted neighbouring modes and
+    # residual terms subtracted: each single-mode estimator sees this mode alone
     sel = np.abs(speed / wn - 1.0) <= max(6.0 * zeta, 0.1)
-    speed, x = speed[sel], x[sel]
+    speed, x, counts = speed[sel], x[sel], counts[sel]
+    r = speed / wn
+    own = mode.modal_constants_um_pp[fit.probes.index(probe)] * r**2 / (1.0 - r**2 + 2j * zeta * r)
+    x = x - (fit.predict(probe, speed) - own)
     af_fit = amplification_factor_from_damping(zeta)
     rows = [
         EstimatorRow(
@@ -197,11 +204,11 @@ def compare_estimators(
     if speed.size >= 5:
         point = _estimates(speed, x, wn, zeta)
         rng = np.random.default_rng(seed)
-        model = fit.predict(probe, speed)
-        sigma = fit.noise_rms_um_pp
+        # per-sample noise of the fit; a bin mean of n samples has 1/sqrt(n) of it
+        sigma = fit.noise_rms_um_pp / np.sqrt(counts)
         boot = []
         for _ in range(n_boot):
-            noisy = model + sigma * (rng.standard_normal(speed.size) + 1j * rng.standard_normal(speed.size)) / math.sqrt(2)
+            noisy = own + sigma * (rng.standard_normal(speed.size) + 1j * rng.standard_normal(speed.size)) / math.sqrt(2)
             boot.append(_estimates(speed, noisy, wn, zeta))
         b = np.array(boot)
         rows.append(_row_from_samples("half_power", list(b[:, 0]), point[0], math.nan, probe, "API 684 on the samples"))

@@ -56,8 +56,8 @@ class Orbit:
         Complex horizontal (``x``, to the right viewed from the driver) and vertical (``y``,
         up) components, um pp.
     ccw_um_pp, cw_um_pp
-        Counter-clockwise and clockwise whirl components ``r_+``, ``r_-`` (as peak-to-peak
-        diameters, i.e. ``2 |r|``), complex.
+        Counter-clockwise and clockwise whirl components ``r_+``, ``r_-``, complex; with
+        peak-to-peak inputs their moduli are the peak-to-peak diameters of the two circles.
     semi_major_um_pp, semi_minor_um_pp
         Major and minor axes as peak-to-peak amplitudes (twice the semi-axes).
     major_axis_angle_deg
@@ -156,8 +156,8 @@ def orbit(
         speed_rpm=np.asarray(speed_rpm, dtype=float),
         x_um_pp=x,
         y_um_pp=y,
-        ccw_um_pp=2.0 * rp,
-        cw_um_pp=2.0 * rm,
+        ccw_um_pp=rp,
+        cw_um_pp=rm,
         semi_major_um_pp=major,
         semi_minor_um_pp=minor,
         major_axis_angle_deg=from_up,
@@ -172,8 +172,7 @@ def major_axis_response(orb: Orbit) -> NDArray[np.complex128]:
     The extreme is reached at ``Omega t = (arg r_- - arg r_+)/2`` (modulo 180 deg); the
     branch is chosen to keep the lag continuous from one speed to the next.
     """
-    rp = orb.ccw_um_pp / 2.0
-    rm = orb.cw_um_pp / 2.0
+    rp, rm = orb.ccw_um_pp, orb.cw_um_pp
     lag = (np.angle(rm) - np.angle(rp)) / 2.0  # shaft angle of the extreme, modulo pi
     # continuity: unwrap on twice the angle (period pi), then halve
     lag = np.unwrap(2.0 * lag) / 2.0

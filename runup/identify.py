@@ -262,7 +262,7 @@ def _window(curves: Sequence[Curve], low: float, high: float, n_linear: int):
             bs, bx, bw = bin_curve(s, x)
             data.append((curve.probe, bs, bx))
             weights.append(bw)
-            raw[curve.probe] = (bs, bx)
+            raw[curve.probe] = (bs, bx, bw)
     sigma = float(np.median(sigmas)) if sigmas else math.nan
     return data, weights, raw, sigma
 

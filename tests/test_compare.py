@@ -191,3 +191,25 @@ def test_sample_run_against_sample_prediction_and_json():
     doc = json.loads(json.dumps(agreement_to_dict(a), allow_nan=False))
     assert doc["matches"][0]["checks"][0]["source"].endswith("from memory")
     assert len(a.to_frame()) == 2
+
+
+def test_measured_split_critical_meets_a_predicted_split_pair(tmp_path):
+    """A split critical resolved by identify enters the assignment as its two speeds when the
+    prediction has a split pair (synthetic coastdown: 4,210 / 4,520 rpm truth)."""
+    import runup
+    from runup.compare import compare
+    from runup.io.predicted import read_predicted
+
+    pred = tmp_path / "split.toml"
+    pred.write_text(
+        "# synthetic prediction with a split pair\nschema_version = 1\n"
+        '[[modes]]\nmode = "1st horizontal"\nspeed_rpm = 4250\nsplit_pair = "first"\n'
+        '[[modes]]\nmode = "1st vertical"\nspeed_rpm = 4500\nsplit_pair = "first"\n'
+        '[[modes]]\nmode = "2nd"\nspeed_rpm = 9300\n'
+    )
+    ident = runup.identify("sample_runs/compressor_coastdown.csv")
+    agreement = compare(ident.criticals, read_predicted(pred))
+    matched = sorted(round(m.measured.speed_rpm) for m in agreement.matches)
+    assert len(matched) == 3 and not agreement.unmatched_measured
+    # the branches' peak speeds (about 4,220 and 4,531 rpm) each sit within 5 % of a pair member
+    assert abs(matched[0] / 4250 - 1) < 0.05 and abs(matched[1] / 4500 - 1) < 0.05

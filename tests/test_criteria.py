@@ -386,8 +386,9 @@ def test_sample_startup_against_api617():
     assert first.status == "pass" and second.status == "pass"
     assert result.passed and result.exit_code == 0
     hot = judge(runup.identify("sample_runs/compressor_coastdown.csv"), rules=load_rules("api617"))
+    # the split first critical is judged at both speeds (~4,220 and ~4,531 rpm, far below MOS: pass);
     # second critical moved up to ~9,410 rpm peak, AF ~6.6: 10.4 % against 17(1 - 1/5.1) = 13.7 %: fail
-    assert [v.status for v in hot.margins] == ["pass", "fail"] and hot.exit_code == 1
+    assert [v.status for v in hot.margins] == ["pass", "pass", "fail"] and hot.exit_code == 1
     result = hot
     assert all(v.limit_um_pp == 25.4 for v in result.vibration)
     doc = check_to_dict(result)
@@ -395,3 +396,15 @@ def test_sample_startup_against_api617():
     assert doc["exit_code"] == 1 and doc["rules"][0]["checked"] == "from memory"
     lines = check_lines(result)
     assert any("API 617, 8th ed., 2014" in line for line in lines) and lines[-1].startswith("Results support")
+
+
+def test_margin_without_a_speed_interval_is_still_judged():
+    """A critical with an AF interval but no natural-speed interval gets a verdict, not a crash."""
+    from dataclasses import replace
+
+    c = runup.identify("sample_runs/compressor_startup.csv").criticals[0]
+    c = replace(c, natural_speed_ci95_rpm=None)
+    ops = runup.OperatingSpeeds(min_operating_rpm=10_500, max_continuous_rpm=11_500)
+    (v,) = check_margins([c], ops, load_rules("api617"))
+    # by hand: (10,500 - Nc)/10,500 with Nc the peak-response speed
+    assert_allclose(v.margin_percent, 100 * (10_500 - c.speed_rpm) / 10_500, rtol=EXACT)

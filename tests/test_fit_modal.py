@@ -83,3 +83,21 @@ def test_interval_coverage_by_monte_carlo():
         hits_z += abs(m.damping_ratio - 0.05) <= 1.96 * m.damping_ratio_stderr
     assert 0.90 <= hits_wn / trials <= 0.99
     assert 0.90 <= hits_z / trials <= 0.99
+
+
+def test_binned_fit_estimates_the_per_sample_noise_and_honest_errors():
+    """Fitting 300 bin means of 8,000 samples (weighted by their counts) gives the per-sample
+    noise RMS and the same standard errors as fitting every sample (weighted least squares,
+    Bates & Watts 1988): degrees of freedom count bins, not samples."""
+    from runup.fit.binning import bin_curve
+
+    rng = np.random.default_rng(0)
+    speed = np.linspace(2000.0, 4000.0, 8000)
+    x = unbalance_response(speed, natural_speed_rpm=3000.0, damping_ratio=0.05, modal_constant=20 + 5j)
+    x = x + _noise(rng, speed.size, 6.0)
+    full = fit_modes([("P", speed, x)], initial=[(2950.0, 0.06)])
+    bs, bx, bw = bin_curve(speed, x)
+    binned = fit_modes([("P", bs, bx)], initial=[(2950.0, 0.06)], weights=[bw])
+    assert_allclose(binned.noise_rms_um_pp, 6.0, rtol=0.1)  # 300 bins: noise RMS to ~4 %
+    assert_allclose(binned.modes[0].damping_ratio_stderr, full.modes[0].damping_ratio_stderr, rtol=0.15)
+    assert_allclose(binned.modes[0].natural_speed_stderr_rpm, full.modes[0].natural_speed_stderr_rpm, rtol=0.15)

@@ -85,3 +85,16 @@ def test_probe_pairs_from_metadata_and_parallel_probes_rejected():
     assert [(p.plane, p.first.name, p.second.name) for p in pairs] == [("DE", "A", "B")]
     with pytest.raises(DataFormatError, match="parallel"):
         resolve([1.0], [1.0], first_angle_deg=10.0, second_angle_deg=190.0)
+
+
+def test_circular_forward_orbit_has_one_whirl_component_of_its_diameter():
+    """A circular 2 um pp orbit turning counter-clockwise: ccw component 2 um pp, cw component 0
+    (forward circle only; Muszynska 2005)."""
+    wt = np.linspace(0, 2 * np.pi, 1024, endpoint=False)
+    x_t, y_t = np.cos(wt), np.sin(wt)  # radius 1 um: 2 um pk-pk, counter-clockwise
+    p1 = 2 * _phasor_of(_probe_reading(x_t, y_t, 0.0), wt)
+    p2 = 2 * _phasor_of(_probe_reading(x_t, y_t, -90.0), wt)
+    orb = orbit([1000.0], [p1], [p2], first_angle_deg=0.0, second_angle_deg=-90.0, rotation="ccw")
+    assert_allclose(abs(orb.ccw_um_pp[0]), 2.0, rtol=1e-9)
+    assert_allclose(abs(orb.cw_um_pp[0]), 0.0, atol=1e-9)
+    assert_allclose([orb.semi_major_um_pp[0], orb.semi_minor_um_pp[0]], [2.0, 2.0], rtol=1e-9)

@@ -85,6 +85,9 @@ class ModalFit:
         Real parameters fitted (nonlinear and linear).
     residual_model
         The ``residual_terms`` the fit used.
+    n_residuals
+        Complex residuals (points, bins counting once), the basis of the degrees of
+        freedom and of the BIC.
     """
 
     modes: tuple[ModeEstimate, ...]
@@ -99,6 +102,7 @@ class ModalFit:
     ssr_um2: float = math.nan
     n_parameters: int = 0
     residual_model: str = "constant+quadratic"
+    n_residuals: int = 0
 
     def predict(self, probe: str, speed_rpm: NDArray[np.float64]) -> NDArray[np.complex128]:
         """Fitted complex response of one probe at the given speeds (um pp)."""
@@ -307,7 +311,10 @@ def fit_modes(
     resid = proj.residual_vector(sol.x)
     coefs = list(proj.coef)
     ssr = float(resid @ resid)
-    dof = 2 * n_points - n_real_params
+    # residuals are one per point (a bin mean weighted by sqrt(count) has the per-sample
+    # variance), so the degrees of freedom count points, not the samples they average
+    n_residuals = sum(len(c[1]) for c in curves)
+    dof = 2 * n_residuals - n_real_params
     s2 = ssr / dof
     jac = sol.jac
     try:
@@ -342,6 +349,7 @@ def fit_modes(
         reference_rpm=ref,
         noise_rms_um_pp=math.sqrt(ssr / (dof / 2.0)),
         n_points=n_points,
+        n_residuals=n_residuals,
         low_rpm=smin,
         high_rpm=smax,
         converged=bool(sol.success),

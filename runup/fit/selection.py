@@ -82,8 +82,9 @@ class Selection:
 
 
 def bic(fit: ModalFit) -> float:
-    """Schwarz's information criterion of a fit, ``n ln(SSR/n) + P ln n``, ``n = 2 N``."""
-    n = 2.0 * fit.n_points
+    """Schwarz's information criterion of a fit, ``n ln(SSR/n) + P ln n``, ``n = 2 N`` with
+    ``N`` the complex residuals (a bin counts once; its weight already carries its samples)."""
+    n = 2.0 * (fit.n_residuals or fit.n_points)
     return n * math.log(max(fit.ssr_um2, 1e-300) / n) + fit.n_parameters * math.log(n)
 
 
