@@ -24,7 +24,12 @@ from .estimators import EstimatorTable, compare_estimators
 from .fit.circle import CircleFit
 from .fit.half_power import HalfPower, half_power
 from .fit.modal import ModalFit
-from .fit.models import amplification_factor_from_damping, half_power_speed_ratios, peak_speed_ratio
+from .fit.models import (
+    amplification_factor_from_damping,
+    damping_from_amplification_factor,
+    half_power_speed_ratios,
+    peak_speed_ratio,
+)
 from .geometry import ProbePair, major_axis_response, orbit
 from .run import Curve
 
@@ -258,8 +263,6 @@ def critical_from_fit(
 
 def critical_from_fallback(start: Start) -> Critical | None:
     """Critical from the circle fit, else from half-power, when the modal fit fails."""
-    from .fit.models import damping_from_amplification_factor
-
     inside = [c for c in start.circles.values() if start.low_rpm <= c.natural_speed_rpm <= start.high_rpm]
     if inside:
         best = max(inside, key=lambda c: c.radius_um_pp)

@@ -59,6 +59,7 @@ from .fit.selection import (
     select_residual,
 )
 from .geometry import probe_pairs
+from .io import read_run
 from .review import EMPTY_REVIEW, Review
 from .run import ConditionedRun, Curve, Run
 
@@ -117,8 +118,6 @@ def identify(
     if isinstance(source, ConditionedRun):
         return identify_conditioned(source, review=review)
     if not isinstance(source, Run):
-        from .io import read_run
-
         source = read_run(source)
     return identify_conditioned(condition(source, slow_roll=slow_roll, despike=despike), review=review)
 
