@@ -8,7 +8,7 @@ orientation may give little amplitude peak but a plain phase rise.  runup looks 
 
 *amplitude evidence*
     local maxima of ``|X|`` with a prominence (``scipy.signal.find_peaks``) of at least
-    ``k_amp`` times the noise scale ``sigma`` of the curve;
+    ``k_amp`` times the noise scale ``sigma_i`` at the peak;
 *phase evidence*
     local maxima of the lag rise over a relative speed window,
     ``dphi(N) = phi(N (1 + h)) - phi(N (1 - h))`` with ``h = 0.15``, of at least 45 degrees,
@@ -20,6 +20,10 @@ The noise scale is estimated robustly from the complex second differences:
 ``sigma = median |X[i+1] - 2 X[i] + X[i-1]| / sqrt(6 ln 2)`` (for complex circular
 Gaussian noise of variance ``sigma^2`` the second difference has variance ``6 sigma^2`` and
 the median of its modulus is ``sqrt(6 sigma^2 ln 2)``; a smooth response adds little).
+A point that averages ``c_i`` samples (:attr:`runup.run.Curve.sample_counts`) has the noise
+scale ``sigma_i = sigma / sqrt(c_i)``, and the second differences are normalised by their
+own variance, ``sigma^2 (1/c[i-1] + 4/c[i] + 1/c[i+1])``, before the median
+(:func:`noise_scale`); for single samples this is the rule above.
 
 Candidates on one probe that lie within the consolidation tolerance of each other are one
 candidate (evidence ``peak+phase``); across probes the same rule groups candidates into
@@ -111,17 +115,32 @@ class ModeCandidate:
         return tuple(dict.fromkeys(m.probe for m in self.members))
 
 
-def noise_scale(response_um_pp: NDArray[np.complex128]) -> float:
-    """Robust RMS of the complex measurement noise of a curve (see module notes)."""
+def noise_scale(
+    response_um_pp: NDArray[np.complex128], counts: NDArray[np.float64] | None = None
+) -> float:
+    """Robust RMS of the complex measurement noise of one sample of a curve (see module notes).
+
+    ``counts`` are the samples each point averages (default 1 each): a mean of ``c``
+    samples has ``1/c`` of a sample's noise variance, so each second difference is divided
+    by ``sqrt(1/c[i-1] + 4/c[i] + 1/c[i+1])`` (``sqrt(6)`` for single samples) before the
+    median is taken.
+    """
     x = np.asarray(response_um_pp, dtype=complex)
     if x.size < 3:
         return math.nan
-    d2 = x[2:] - 2.0 * x[1:-1] + x[:-2]
-    return float(np.median(np.abs(d2)) / math.sqrt(6.0 * math.log(2.0)))
+    d2 = np.abs(x[2:] - 2.0 * x[1:-1] + x[:-2])
+    if counts is None:
+        return float(np.median(d2) / math.sqrt(6.0 * math.log(2.0)))
+    c = np.asarray(counts, dtype=float)
+    scale = np.sqrt(1.0 / c[2:] + 4.0 / c[1:-1] + 1.0 / c[:-2])
+    return float(np.median(d2 / scale) / math.sqrt(math.log(2.0)))
 
 
-def _phase_rise(curve: Curve, sigma: float) -> tuple[NDArray, NDArray]:
-    """Lag rise ``phi(N(1+h)) - phi(N(1-h))`` (deg) at each reliable point; speeds and rises."""
+def _phase_rise(curve: Curve, sigma: NDArray[np.float64]) -> tuple[NDArray, NDArray]:
+    """Lag rise ``phi(N(1+h)) - phi(N(1-h))`` (deg) at each reliable point; speeds and rises.
+
+    ``sigma`` is the noise scale of each point.
+    """
     amp = curve.amplitude_um_pp
     ok = amp > PHASE_RELIABLE_SIGMAS * sigma
     if ok.sum() < 3:
@@ -143,11 +162,14 @@ def find_candidates(curve: Curve) -> tuple[Candidate, ...]:
     n = curve.speed_rpm.size
     if n < 5:
         return ()
-    sigma = noise_scale(curve.response_um_pp)
+    sigma = noise_scale(curve.response_um_pp, curve.sample_counts)
     amp = curve.amplitude_um_pp
-    floor = max(sigma, 1e-9 * float(amp.max()) if amp.size else 0.0, 1e-12)
-    # amplitude evidence
-    peaks, props = find_peaks(amp, prominence=AMPLITUDE_PROMINENCE_SIGMAS * floor)
+    # noise scale of each point: a mean of c samples has 1/sqrt(c) of a sample's noise
+    floor = np.maximum(sigma / np.sqrt(curve.sample_counts), max(1e-9 * float(amp.max()), 1e-12))
+    # amplitude evidence: prominence in units of the noise scale at the peak
+    peaks, props = find_peaks(amp, prominence=AMPLITUDE_PROMINENCE_SIGMAS * float(floor.min()))
+    strong = props["prominences"] >= AMPLITUDE_PROMINENCE_SIGMAS * floor[peaks]
+    peaks, prominences = peaks[strong], props["prominences"][strong]
     found: list[Candidate] = []
     p_speed, p_rise = _phase_rise(curve, floor)
 
@@ -162,7 +184,7 @@ def find_candidates(curve: Curve) -> tuple[Candidate, ...]:
             return float(np.interp(speed, p_speed[valid], p_rise[valid]))
         return float(np.nanmax(p_rise[near]))
 
-    for idx, prom in zip(peaks, props["prominences"], strict=True):
+    for idx, prom in zip(peaks, prominences, strict=True):
         s = float(curve.speed_rpm[idx])
         rise = rise_at(s)
         evidence: Evidence = "peak+phase" if rise >= PHASE_RISE_DEG else "peak"
@@ -175,7 +197,7 @@ def find_candidates(curve: Curve) -> tuple[Candidate, ...]:
         first = below[-1] + 1 if below.size else 0
         last = idx + above[0] if above.size else amp.size - 1
         found.append(
-            Candidate(curve.probe, curve.order, curve.segment, s, evidence, int(idx), float(prom / floor), rise,
+            Candidate(curve.probe, curve.order, curve.segment, s, evidence, int(idx), float(prom / floor[idx]), rise,
                       width, int(last - first + 1))
         )
     # phase evidence: local maxima of the rise that are not near an amplitude peak

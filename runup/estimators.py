@@ -39,11 +39,10 @@ from dataclasses import dataclass
 
 import numpy as np
 from numpy.typing import NDArray
-from scipy.optimize import least_squares
 
-from .errors import FitError
-from .fit.circle import circle_fit, phase_lag_derivatives
+from .fit.circle import circle_fit_damping, phase_lag_derivatives
 from .fit.half_power import half_power
+from .fit.levenberg_marquardt import least_squares_batch
 from .fit.modal import ModalFit
 from .fit.models import amplification_factor_from_damping, peak_speed_ratio
 
@@ -96,37 +95,41 @@ def phase_slope_damping(
     five, the nearest five otherwise) by least squares in ``(theta_0, Omega_n, zeta)``; the
     slope of the fitted law at ``r = 1`` is ``1/zeta``.  Returns ``nan`` when the fit fails.
     """
-    speed = np.asarray(speed_rpm, dtype=float)
     x = np.asarray(response_um_pp, dtype=complex)
+    return float(_phase_slope_batch(speed_rpm, x[None, :], natural_speed_rpm, damping_ratio_guess)[0])
+
+
+def _phase_slope_batch(speed_rpm: NDArray, x: NDArray, natural_speed_rpm: float, damping_ratio_guess: float) -> NDArray:
+    """:func:`phase_slope_damping` of each row of ``x`` (shape ``(B, m)``) at once."""
+    speed = np.asarray(speed_rpm, dtype=float)
     z0 = float(np.clip(damping_ratio_guess, 2e-3, 0.6))
     sel = np.abs(speed / natural_speed_rpm - 1.0) <= max(2.5 * z0, 0.01)
     if sel.sum() < 5:
         sel = np.zeros(speed.size, dtype=bool)
         sel[np.argsort(np.abs(speed - natural_speed_rpm))[:5]] = True
-    s, lag = speed[sel], np.unwrap(-np.angle(x[sel]))
+    s, lag = speed[sel], np.unwrap(-np.angle(x[:, sel]), axis=1)
 
-    def law(q: NDArray[np.float64]) -> NDArray[np.float64]:
-        r = s / q[1]
-        return q[0] + np.arctan2(2.0 * q[2] * r, 1.0 - r * r) - lag
+    def law(q: NDArray[np.float64], rows: NDArray[np.bool_]) -> NDArray[np.float64]:
+        r = s / q[:, [1]]
+        return q[:, [0]] + np.arctan2(2.0 * q[:, [2]] * r, 1.0 - r * r) - lag[rows]
 
-    def law_jacobian(q: NDArray[np.float64]) -> NDArray[np.float64]:
-        d_wn, d_zeta = phase_lag_derivatives(s, q[1], q[2])
-        return np.column_stack([np.ones_like(d_wn), d_wn, d_zeta])
+    def law_jacobian(q: NDArray[np.float64], rows: NDArray[np.bool_]) -> NDArray[np.float64]:
+        d_wn, d_zeta = phase_lag_derivatives(s, q[:, [1]], q[:, [2]])
+        return np.stack([np.ones_like(d_wn), d_wn, d_zeta], axis=2)
 
-    theta0 = float(np.mean(lag - np.arctan2(2.0 * z0 * s / natural_speed_rpm, 1.0 - (s / natural_speed_rpm) ** 2)))
-    try:
-        sol = least_squares(law, [theta0, natural_speed_rpm, z0], jac=law_jacobian,
-                            bounds=([-np.inf, 0.5 * natural_speed_rpm, 1e-4], [np.inf, 2.0 * natural_speed_rpm, 0.7]),
-                            x_scale=[0.1, 0.01 * natural_speed_rpm, z0])
-    except ValueError:
-        return math.nan
-    return float(sol.x[2]) if sol.success else math.nan
+    shape = np.arctan2(2.0 * z0 * s / natural_speed_rpm, 1.0 - (s / natural_speed_rpm) ** 2)
+    theta0 = np.mean(lag - shape, axis=1)
+    start = np.column_stack([theta0, np.full(theta0.size, natural_speed_rpm), np.full(theta0.size, z0)])
+    sol = least_squares_batch(law, law_jacobian, start, lower=[-np.inf, 0.5 * natural_speed_rpm, 1e-4],
+                              upper=[np.inf, 2.0 * natural_speed_rpm, 0.7])
+    return np.where(sol.success, sol.x[:, 2], np.nan)
 
 
-def _row_from_samples(name: str, values: list[float], point: float, zeta: float, probe: str, note: str) -> EstimatorRow:
+def _row_from_samples(name: str, values: NDArray, point: float, zeta: float, probe: str, note: str) -> EstimatorRow:
     """Interval ``point * exp(+-1.96 s)``, ``s`` the bootstrap standard deviation of log AF."""
-    finite = np.log([v for v in values if math.isfinite(v) and v > 0])
-    if finite.size >= max(5, len(values) // 2) and math.isfinite(point) and point > 0:
+    values = np.asarray(values, dtype=float)
+    finite = np.log(values[np.isfinite(values) & (values > 0)])
+    if finite.size >= max(5, values.size // 2) and math.isfinite(point) and point > 0:
         spread = math.exp(_Z95 * float(np.std(finite, ddof=1)))
         lo, hi = point / spread, point * spread
     else:
@@ -134,25 +137,28 @@ def _row_from_samples(name: str, values: list[float], point: float, zeta: float,
     return EstimatorRow(name, point, float(lo), float(hi), zeta, probe, note)
 
 
-def _estimates(speed: NDArray, x: NDArray, wn: float, zeta: float) -> tuple[float, float, float, float, float]:
-    """(half-power AF, phase-slope AF, phase-slope zeta, circle AF, circle zeta) of one curve."""
+def _estimates(speed: NDArray, x: NDArray, wn: float, zeta: float) -> NDArray[np.float64]:
+    """Per row of ``x`` (shape ``(B, m)``): half-power AF, phase-slope AF and zeta, circle AF and zeta.
+
+    Returns an array of shape ``(B, 5)``, NaN where an estimator fails.
+    """
     amp = np.abs(x)
     near = np.nonzero(np.abs(speed / (wn * peak_speed_ratio(zeta)) - 1.0) <= max(2.0 * zeta, 0.02))[0]
-    k = int(near[np.argmax(amp[near])]) if near.size else int(np.argmax(amp))
-    hp = half_power(speed, amp, peak_index=k)
-    af_hp = hp.amplification_factor if hp.amplification_factor is not None else math.nan
-    z_ps = phase_slope_damping(speed, x, natural_speed_rpm=wn, damping_ratio_guess=zeta)
-    af_ps = amplification_factor_from_damping(z_ps) if math.isfinite(z_ps) else math.nan
+    out = np.full((x.shape[0], 5), np.nan)
+    for b in range(x.shape[0]):
+        k = int(near[np.argmax(amp[b, near])]) if near.size else int(np.argmax(amp[b]))
+        hp = half_power(speed, amp[b], peak_index=k)
+        if hp.amplification_factor is not None:
+            out[b, 0] = hp.amplification_factor
+    out[:, 2] = _phase_slope_batch(speed, x, wn, zeta)
     sel = np.abs(speed / wn - 1.0) <= max(2.5 * zeta, 0.02)
     if sel.sum() < 6:
         sel = np.zeros(speed.size, dtype=bool)
         sel[np.argsort(np.abs(speed - wn))[:6]] = True
-    try:
-        cf = circle_fit(speed[sel], x[sel], natural_speed_guess_rpm=wn, damping_ratio_guess=zeta)
-        af_cf, z_cf = cf.amplification_factor, cf.damping_ratio
-    except FitError:
-        af_cf = z_cf = math.nan
-    return af_hp, af_ps, z_ps, af_cf, z_cf
+    out[:, 4] = circle_fit_damping(speed[sel], x[:, sel], natural_speed_guess_rpm=wn, damping_ratio_guess=zeta)
+    for col in (2, 4):
+        out[:, col - 1] = [amplification_factor_from_damping(z) if math.isfinite(z) else math.nan for z in out[:, col]]
+    return out
 
 
 def compare_estimators(
@@ -202,18 +208,16 @@ def compare_estimators(
         )
     ]
     if speed.size >= 5:
-        point = _estimates(speed, x, wn, zeta)
         rng = np.random.default_rng(seed)
         # per-sample noise of the fit; a bin mean of n samples has 1/sqrt(n) of it
         sigma = fit.noise_rms_um_pp / np.sqrt(counts)
-        boot = []
-        for _ in range(n_boot):
-            noisy = own + sigma * (rng.standard_normal(speed.size) + 1j * rng.standard_normal(speed.size)) / math.sqrt(2)
-            boot.append(_estimates(speed, noisy, wn, zeta))
-        b = np.array(boot)
-        rows.append(_row_from_samples("half_power", list(b[:, 0]), point[0], math.nan, probe, "API 684 on the samples"))
-        rows.append(_row_from_samples("phase_slope", list(b[:, 1]), point[1], point[2], probe, "d(lag)/dr = 1/zeta at r = 1"))
-        rows.append(_row_from_samples("circle_fit", list(b[:, 3]), point[3], point[4], probe, "Kennedy-Pancu on X/r"))
+        noise = rng.standard_normal((n_boot, speed.size)) + 1j * rng.standard_normal((n_boot, speed.size))
+        # row 0: the measured points; rows 1...: the replicates
+        est = _estimates(speed, np.vstack([x, own + sigma * noise / math.sqrt(2)]), wn, zeta)
+        point, b = est[0], est[1:]
+        rows.append(_row_from_samples("half_power", b[:, 0], point[0], math.nan, probe, "API 684 on the samples"))
+        rows.append(_row_from_samples("phase_slope", b[:, 1], point[1], point[2], probe, "d(lag)/dr = 1/zeta at r = 1"))
+        rows.append(_row_from_samples("circle_fit", b[:, 3], point[3], point[4], probe, "Kennedy-Pancu on X/r"))
     headline = "global_fit"
     reason = (
         "global fit: uses every probe, accounts for neighbouring modes and residual runout, and has the "

@@ -46,8 +46,8 @@ from .conditioning import condition
 from .critical import Critical, Identification
 from .detect import PHASE_WINDOW, ModeCandidate, consolidate, find_candidates, noise_scale
 from .errors import FitError
-from .fit.binning import bin_curve
-from .fit.circle import CircleFit, circle_fit
+from .fit.binning import bin_curve, merge_within_resolution
+from .fit.circle import CircleFit, circle_fits
 from .fit.half_power import HalfPower, half_power
 from .fit.modal import ModalFit, fit_modes
 from .fit.models import damping_from_amplification_factor, peak_speed_ratio
@@ -122,14 +122,25 @@ def identify(
     return identify_conditioned(condition(source, slow_roll=slow_roll, despike=despike), review=review)
 
 
-def _as_frequency(curve: Curve) -> Curve:
-    """An order-n curve on the frequency axis ``n x speed`` (rpm-equivalent)."""
-    if curve.order == 1:
+def _analysis_curve(curve: Curve) -> Curve:
+    """A conditioned curve as identification sees it.
+
+    An order-n curve is put on the frequency axis ``n x speed`` (rpm-equivalent), and
+    points closer than :data:`~runup.fit.binning.SPEED_RESOLUTION` in speed are averaged
+    (:func:`~runup.fit.binning.merge_within_resolution`; the curve keeps how many samples
+    each point averages).
+    """
+    speed = curve.speed_rpm * curve.order
+    arrays = (curve.response_um_pp, curve.raw_response_um_pp, curve.time_s)
+    merged = merge_within_resolution(speed, arrays, curve.sample_counts)
+    if merged is None and curve.order == 1:
         return curve
-    return Curve(
-        curve.probe, curve.order, curve.segment, curve.direction, curve.speed_rpm * curve.order,
-        curve.response_um_pp, curve.raw_response_um_pp, curve.time_s, curve.slow_roll,
-    )
+    counts = curve.sample_counts
+    if merged is not None:
+        speed, arrays, counts = merged
+    response, raw, time = arrays
+    return Curve(curve.probe, curve.order, curve.segment, curve.direction, speed, response, raw, time,
+                 curve.slow_roll, counts)
 
 
 def identify_conditioned(conditioned: ConditionedRun, *, review: Review | None = None) -> Identification:
@@ -140,7 +151,7 @@ def identify_conditioned(conditioned: ConditionedRun, *, review: Review | None =
     pairs = probe_pairs(conditioned.metadata)
     groups: dict[tuple[int, int], list[Curve]] = {}
     for curve in conditioned.curves:
-        groups.setdefault((curve.segment, curve.order), []).append(_as_frequency(curve))
+        groups.setdefault((curve.segment, curve.order), []).append(_analysis_curve(curve))
     for (segment, order), curves in sorted(groups.items()):
         label = f"segment {segment + 1}, order {order}X"
         candidates = [c for curve in curves for c in find_candidates(curve)]
@@ -219,7 +230,7 @@ def _prepare(curves: Sequence[Curve], mode: ModeCandidate, lower: float, upper: 
                 guesses = [entry.damping_ratio]
             break
     zeta = float(np.median(guesses)) if guesses else _DEFAULT_DAMPING
-    circles: dict[str, CircleFit] = {}
+    windows, probes = [], []
     for cand in mode.members:
         curve = by_probe[cand.probe]
         band = max(2.5 * zeta, 0.02)
@@ -229,11 +240,13 @@ def _prepare(curves: Sequence[Curve], mode: ModeCandidate, lower: float, upper: 
             idx = np.nonzero(inside)[0]
             sel = np.zeros_like(sel)
             sel[idx[np.argsort(np.abs(curve.speed_rpm[idx] - mode.speed_rpm))[:6]]] = True
-        bs, bx, _ = bin_curve(curve.speed_rpm[sel], curve.response_um_pp[sel])
-        try:
-            circles[cand.probe] = circle_fit(bs, bx, natural_speed_guess_rpm=mode.speed_rpm, damping_ratio_guess=zeta)
-        except FitError:
-            pass
+        bs, bx, _ = bin_curve(curve.speed_rpm[sel], curve.response_um_pp[sel], counts=curve.sample_counts[sel])
+        windows.append((bs, bx))
+        probes.append(cand.probe)
+    # one batched fit for all probes (failed fits are left out)
+    fits = circle_fits(windows, natural_speed_guesses_rpm=[mode.speed_rpm] * len(windows),
+                       damping_ratio_guesses=[zeta] * len(windows))
+    circles: dict[str, CircleFit] = {p: f for p, f in zip(probes, fits, strict=True) if isinstance(f, CircleFit)}
     width = _half_width(zeta)
     return Start(mode, mode.speed_rpm * (1 - width), mode.speed_rpm * (1 + width), zeta, half_powers,
                  circles, tuple(curves), reason)
@@ -256,9 +269,9 @@ def _window(curves: Sequence[Curve], low: float, high: float, n_linear: int):
     for curve in curves:
         sel = (curve.speed_rpm >= low) & (curve.speed_rpm <= high)
         if sel.sum() >= max(_MIN_WINDOW_POINTS // 2, n_linear + 3):
-            s, x = curve.speed_rpm[sel], curve.response_um_pp[sel]
-            sigmas.append(noise_scale(x))
-            bs, bx, bw = bin_curve(s, x)
+            s, x, c = curve.speed_rpm[sel], curve.response_um_pp[sel], curve.sample_counts[sel]
+            sigmas.append(noise_scale(x, c))
+            bs, bx, bw = bin_curve(s, x, counts=c)
             data.append((curve.probe, bs, bx))
             weights.append(bw)
             raw[curve.probe] = (bs, bx, bw)

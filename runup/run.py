@@ -375,6 +375,10 @@ class Curve:
         Mean acquisition time of each point (NaN without ``time_s``).
     slow_roll
         The vector subtracted, or ``None``.
+    sample_counts
+        How many samples each point averages (default 1 each); identification averages
+        points closer than its speed resolution and carries the counts, so that noise
+        scales and fit weights stay per sample (:mod:`runup.fit.binning`).
     """
 
     probe: str
@@ -386,18 +390,25 @@ class Curve:
     raw_response_um_pp: NDArray[np.complex128]
     time_s: NDArray[np.float64]
     slow_roll: SlowRoll | None = None
+    sample_counts: NDArray[np.float64] | None = None
 
     def __post_init__(self) -> None:
+        if self.sample_counts is None:
+            object.__setattr__(self, "sample_counts", np.ones(np.size(self.speed_rpm)))
         for name, dtype in (
             ("speed_rpm", np.float64),
             ("response_um_pp", np.complex128),
             ("raw_response_um_pp", np.complex128),
             ("time_s", np.float64),
+            ("sample_counts", np.float64),
         ):
             object.__setattr__(self, name, _readonly(getattr(self, name), dtype))
         n = self.speed_rpm.size
-        if any(getattr(self, a).size != n for a in ("response_um_pp", "raw_response_um_pp", "time_s")):
+        arrays = ("response_um_pp", "raw_response_um_pp", "time_s", "sample_counts")
+        if any(getattr(self, a).size != n for a in arrays):
             raise DataFormatError(f"curve {self.probe}: arrays of different lengths")
+        if not np.all(self.sample_counts >= 1):
+            raise DataFormatError(f"curve {self.probe}: sample counts must be at least 1")
         if n > 1 and not np.all(np.diff(self.speed_rpm) > 0):
             raise DataFormatError(f"curve {self.probe}: speeds must be strictly increasing")
 

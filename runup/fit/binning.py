@@ -1,4 +1,4 @@
-"""Averaging dense samples into speed bins before fitting.
+"""Averaging dense samples before identification and fitting.
 
 A curve with thousands of points inside a fit window carries no more information about a
 smooth response than a few hundred bin means, each weighted by the number of samples it
@@ -7,6 +7,21 @@ of the bin means has the same solution and Fisher information, to first order, a
 of the samples (the normal equations of a block-averaged regression; e.g. Bates & Watts,
 1988, sec. 1.3 on weighted least squares).  Fitting cost then no longer grows with the
 record length.
+
+Two averagings are used, both carrying the number of samples behind each mean so that
+noise scales and fit weights stay per sample:
+
+:func:`merge_within_resolution`
+    before identification, points closer than ``SPEED_RESOLUTION`` (0.1 %) in speed are
+    averaged into one: bins of width ``SPEED_RESOLUTION`` in ``ln(speed)`` on a fixed grid
+    (so X and Y probes sampled at the same speeds keep common speeds).  A curve sampled
+    more coarsely is unchanged.  The averaging bias of a mean over a relative width ``h``
+    is about ``(h^2 / 24) X''``; near a single mode ``|X''/X| <= 2 / (zeta Omega_n)^2``
+    (from the modal response ``1/(1 - r^2 + 2 j zeta r)``, derived), so at ``h = 0.1 %``
+    the amplitude bias is below ``0.1 %`` for ``zeta >= 0.01`` (AF below 50);
+:func:`bin_curve`
+    a fit window of more than ``MAX_FIT_POINTS`` points is averaged into that many bins of
+    equal width in speed.
 """
 
 from __future__ import annotations
@@ -14,36 +29,93 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import NDArray
 
-__all__ = ["MAX_FIT_POINTS", "bin_curve"]
+__all__ = ["MAX_FIT_POINTS", "SPEED_RESOLUTION", "bin_curve", "merge_within_resolution"]
 
 #: Points per probe above which a fit window is averaged into this many bins.
 MAX_FIT_POINTS = 300
+#: Relative speed resolution of identification: points closer than this are averaged.
+SPEED_RESOLUTION = 1e-3
+
+
+def _means(
+    idx: NDArray[np.intp], n_bins: int, speed: NDArray, arrays: tuple[NDArray, ...], counts: NDArray
+) -> tuple[NDArray, tuple[NDArray, ...], NDArray]:
+    """Count-weighted means per bin label ``idx`` (0..n_bins-1); empty bins skipped."""
+    total = np.bincount(idx, weights=counts, minlength=n_bins)
+    keep = total > 0
+    total = total[keep]
+
+    def mean(v: NDArray) -> NDArray:
+        if np.iscomplexobj(v):
+            re = np.bincount(idx, weights=v.real * counts, minlength=n_bins)[keep]
+            im = np.bincount(idx, weights=v.imag * counts, minlength=n_bins)[keep]
+            return (re + 1j * im) / total
+        return np.bincount(idx, weights=v * counts, minlength=n_bins)[keep] / total
+
+    return mean(speed), tuple(mean(a) for a in arrays), total
 
 
 def bin_curve(
     speed_rpm: NDArray[np.float64],
     response_um_pp: NDArray[np.complex128],
     *,
+    counts: NDArray[np.float64] | None = None,
     max_points: int = MAX_FIT_POINTS,
 ) -> tuple[NDArray[np.float64], NDArray[np.complex128], NDArray[np.float64]]:
     """Bin means of a curve with more than ``max_points`` points (else the curve itself).
 
     Bins are equal in speed between the first and last point; empty bins are skipped.
+    ``counts`` are the samples each input point already averages (default 1 each).
 
     Returns
     -------
     (speed_rpm, response_um_pp, counts)
-        Mean speed and mean complex response of each bin, and the samples it averages.
+        Count-weighted mean speed and mean complex response of each bin, and the samples
+        it averages.
     """
     speed = np.asarray(speed_rpm, dtype=float)
     x = np.asarray(response_um_pp, dtype=complex)
+    c = np.ones(speed.size) if counts is None else np.asarray(counts, dtype=float)
     if speed.size <= max_points:
-        return speed, x, np.ones(speed.size)
+        return speed, x, c
     edges = np.linspace(speed[0], speed[-1], max_points + 1)
     idx = np.clip(np.searchsorted(edges, speed, side="right") - 1, 0, max_points - 1)
-    counts = np.bincount(idx, minlength=max_points).astype(float)
-    keep = counts > 0
-    mean_speed = np.bincount(idx, weights=speed, minlength=max_points)[keep] / counts[keep]
-    re = np.bincount(idx, weights=x.real, minlength=max_points)[keep] / counts[keep]
-    im = np.bincount(idx, weights=x.imag, minlength=max_points)[keep] / counts[keep]
-    return mean_speed, re + 1j * im, counts[keep]
+    mean_speed, (mean_x,), total = _means(idx, max_points, speed, (x,), c)
+    return mean_speed, mean_x, total
+
+
+def merge_within_resolution(
+    speed_rpm: NDArray[np.float64],
+    arrays: tuple[NDArray, ...],
+    counts: NDArray[np.float64],
+    *,
+    resolution: float = SPEED_RESOLUTION,
+) -> tuple[NDArray[np.float64], tuple[NDArray, ...], NDArray[np.float64]] | None:
+    """Average points of an increasing speed curve that share a bin of ``resolution`` in ``ln(speed)``.
+
+    Parameters
+    ----------
+    speed_rpm
+        Strictly increasing, positive speeds.
+    arrays
+        Per-point values to average alongside (complex or real), each of ``speed_rpm``'s size.
+    counts
+        Samples each point already averages.
+    resolution
+        Bin width in ``ln(speed)`` (relative speed).
+
+    Returns
+    -------
+    (speed_rpm, arrays, counts) or None
+        Count-weighted means per occupied bin; ``None`` when no two points share a bin
+        (the curve is unchanged).
+    """
+    speed = np.asarray(speed_rpm, dtype=float)
+    label = np.floor(np.log(speed) / resolution).astype(np.int64)
+    if speed.size < 2 or np.all(label[1:] != label[:-1]):
+        return None
+    new = np.empty(speed.size, dtype=bool)
+    new[0] = True
+    new[1:] = label[1:] != label[:-1]
+    idx = np.cumsum(new) - 1
+    return _means(idx, int(idx[-1]) + 1, speed, arrays, np.asarray(counts, dtype=float))
