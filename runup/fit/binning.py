@@ -114,8 +114,11 @@ def merge_within_resolution(
     label = np.floor(np.log(speed) / resolution).astype(np.int64)
     if speed.size < 2 or np.all(label[1:] != label[:-1]):
         return None
-    new = np.empty(speed.size, dtype=bool)
-    new[0] = True
-    new[1:] = label[1:] != label[:-1]
-    idx = np.cumsum(new) - 1
-    return _means(idx, int(idx[-1]) + 1, speed, arrays, np.asarray(counts, dtype=float))
+    starts = np.flatnonzero(np.concatenate(([True], label[1:] != label[:-1])))
+    c = np.asarray(counts, dtype=float)
+    total = np.add.reduceat(c, starts)
+
+    def mean(v: NDArray) -> NDArray:  # bins are runs of consecutive points: reduceat
+        return np.add.reduceat(v * c, starts) / total
+
+    return mean(speed), tuple(mean(np.asarray(a)) for a in arrays), total

@@ -189,7 +189,8 @@ def phase_lag_derivatives(
 
 
 def _wrap(angle: NDArray[np.float64]) -> NDArray[np.float64]:
-    return np.angle(np.exp(1j * angle))
+    """Angles wrapped to [-pi, pi)."""
+    return np.remainder(angle + math.pi, 2.0 * math.pi) - math.pi
 
 
 def damping_from_point_pair(

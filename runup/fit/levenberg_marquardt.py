@@ -66,9 +66,9 @@ def least_squares_batch(
     *,
     lower: ArrayLike | None = None,
     upper: ArrayLike | None = None,
-    ftol: float = 1e-10,
-    xtol: float = 1e-10,
-    gtol: float = 1e-10,
+    ftol: float = 1e-8,
+    xtol: float = 1e-8,
+    gtol: float = 1e-8,
     max_iter: int = 200,
 ) -> BatchSolution:
     """Minimise ``0.5 * sum(residual(x)[b] ** 2)`` for every problem ``b`` of a batch.
@@ -88,7 +88,7 @@ def least_squares_batch(
     lower, upper
         Bounds ``(p,)`` or ``(B, p)``; default unbounded.
     ftol, xtol, gtol
-        Convergence tolerances (see module notes).
+        Convergence tolerances (see module notes); the defaults are scipy's.
     max_iter
         Iterations before the problems not yet converged are returned with
         ``success=False``.
@@ -107,7 +107,7 @@ def least_squares_batch(
     jac = jacobian(x, everyone)
     cost = 0.5 * np.einsum("bm,bm->b", r, r)
     scale = np.einsum("bmp,bmp->bp", jac, jac)  # diag(J^T J)
-    mu = 1e-3 * np.max(scale, axis=1)
+    mu = np.full(n_batch, 1e-3)  # dimensionless: the damping term is mu * diag(J^T J)
     nu = np.full(n_batch, 2.0)
     done = ~np.isfinite(cost)
     success = np.zeros(n_batch, dtype=bool)
