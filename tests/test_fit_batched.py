@@ -4,8 +4,8 @@ References: ``scipy.optimize.least_squares`` (general-purpose reference library)
 batched Levenberg–Marquardt solver; Ewins, *Modal Testing*, 2nd ed., 2000, sec. 4.3.2 and
 Rao, *Mechanical Vibrations*, 2011, sec. 3.7 (unbalance response) for the circle fit; the
 variance of a mean of ``c`` independent samples, ``sigma^2 / c`` (any statistics text), for
-count-aware noise scales; the midpoint-rule error ``(h^2/24) f''`` of a local average
-(Abramowitz & Stegun, 1964, 25.4.2) for the averaging bias.
+count-aware noise scales; the Taylor expansion of a local mean, ``f + (h^2/24) f''`` (derived),
+for the averaging bias.
 """
 
 import math
@@ -126,7 +126,7 @@ def test_noise_scale_with_counts_estimates_the_per_sample_noise():
 
 
 def test_merge_within_resolution_keeps_the_response_within_the_averaging_bound():
-    """Dense samples of a mode averaged at 0.1 % resolution stay within the midpoint-rule
+    """Dense samples of a mode averaged at 0.1 % resolution stay within the Taylor
     bias bound (h^2/24)|X''| <= h^2 / (12 zeta^2) |X| of the exact response at the mean speed."""
     zeta, wn = 0.01, 3000.0
     speed = np.linspace(2000.0, 4000.0, 200001)
