@@ -6,7 +6,8 @@ once as CSV and as Parquet to a temporary directory.  Each of these is timed, be
 
 * ``pandas.read_csv`` / ``pandas.read_parquet`` of the file alone (the reference);
 * ``runup.io.read_run`` (import: header detection, unit conversion, checks);
-* ``runup.identify.identify(path)`` (import + conditioning + identification).
+* ``runup.identify.identify(path)`` (import + conditioning + identification);
+* each stage alone, in this process: ``read_run``, ``condition``, ``identify_conditioned``.
 
 Ratios to the pandas read are printed (target: identify <= 3x the pandas read).  The
 machine is shared, so read the ratios rather than the seconds.  Each ``identify`` call
@@ -34,7 +35,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from runup.identify import identify
+from runup.conditioning import condition
+from runup.identify import identify, identify_conditioned
 from runup.io import read_run
 from runup.synthetic import SyntheticMode, SyntheticProbe, synthetic_samples
 
@@ -134,6 +136,22 @@ def profile(folder: Path, n_points: int, n_probes: int, seed: int) -> None:
         print("\n".join(lines[start:]))
 
 
+def stages(csv: Path, parquet: Path, repeat: int) -> None:
+    """Best in-process time of each stage (import, conditioning, identification) per file."""
+    print("\nstages, best of", repeat, "in this process (seconds, and share of the pandas read):")
+    for path, reader in ((csv, pd.read_csv), (parquet, pd.read_parquet)):
+        t_pd = best_of(lambda p=path, r=reader: r(p), repeat)
+        run = read_run(path)
+        conditioned = condition(run)
+        t_read = best_of(lambda p=path: read_run(p), repeat)
+        t_cond = best_of(lambda r=run: condition(r), repeat)
+        t_ident = best_of(lambda c=conditioned: identify_conditioned(c), repeat)
+        total = t_read + t_cond + t_ident
+        print(f"  {path.suffix[1:]:<8} read {t_read:.3f} ({t_read / t_pd:.1f}x), condition {t_cond:.3f} "
+              f"({t_cond / t_pd:.1f}x), identify {t_ident:.3f} ({t_ident / t_pd:.1f}x); sum {total:.3f} "
+              f"= {total / t_pd:.1f}x the pandas read ({t_pd:.3f})")
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--points", type=int, default=50_000, help="samples per probe")
@@ -164,6 +182,7 @@ def main() -> None:
                              f"{t_read / t_pd:.2f}", f"{mark}{t_id / t_pd:.1f}", f"<= {TARGET_RATIO:g}"))
         if found:
             print("  criticals: " + ", ".join(f"{fn:.0f} rpm (zeta {z:.3f})" for fn, z in found))
+        stages(csv, parquet, args.repeat)
         if not args.no_scaling:
             scaling(folder, args.probes, args.seed, (1000, 2000, 4000, 8000), args.timeout)
         if args.profile:

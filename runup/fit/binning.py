@@ -118,7 +118,9 @@ def merge_within_resolution(
     c = np.asarray(counts, dtype=float)
     total = np.add.reduceat(c, starts)
 
+    weighted = not np.all(c == 1.0)
+
     def mean(v: NDArray) -> NDArray:  # bins are runs of consecutive points: reduceat
-        return np.add.reduceat(v * c, starts) / total
+        return np.add.reduceat(v * c if weighted else v, starts) / total
 
     return mean(speed), tuple(mean(np.asarray(a)) for a in arrays), total
