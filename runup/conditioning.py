@@ -16,7 +16,11 @@ The rules, their parameters and their sources are described in ``docs/conditioni
 
 from __future__ import annotations
 
+import functools
 import math
+import os
+from collections.abc import Iterator
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from typing import Literal
 
@@ -77,11 +81,17 @@ SlowRollOption = Literal["auto", "off"] | tuple[float, float]
 
 
 # --------------------------------------------------------------------------- segments
+def _change(values: NDArray) -> NDArray[np.bool_]:
+    """True at the first value and wherever a value differs from the one before it."""
+    change = np.empty(values.size, dtype=bool)
+    change[:1] = True
+    change[1:] = values[1:] != values[:-1]
+    return change
+
+
 def _collapse(speed: NDArray[np.float64]) -> tuple[NDArray[np.float64], NDArray[np.int64]]:
     """Remove consecutive repeats: (distinct-consecutive values, index of each input in them)."""
-    change = np.empty(speed.size, dtype=bool)
-    change[:1] = True
-    change[1:] = speed[1:] != speed[:-1]
+    change = _change(speed)
     return speed[change], np.cumsum(change) - 1
 
 
@@ -96,15 +106,17 @@ def default_segment_tolerance_rpm(speed_rpm: ArrayLike) -> float:
     jittery dwell does not reverse.
     """
     s = np.asarray(speed_rpm, dtype=float)
-    s = s[np.isfinite(s)]
+    finite = np.isfinite(s)
+    if not finite.all():
+        s = s[finite]
     if s.size == 0:
         return 0.0
-    c, _ = _collapse(s)
+    c = s[_change(s)]  # consecutive repeats removed: the same extremes, so the same span
     jitter = 0.0
     if c.size >= 3:
         dd = np.diff(c, 2)
         jitter = _MAD_TO_SIGMA * float(np.median(np.abs(dd - np.median(dd)))) / math.sqrt(6.0)
-    return max(TOLERANCE_SPAN_FRACTION * float(np.ptp(s)), TOLERANCE_JITTER_MULTIPLE * jitter)
+    return max(TOLERANCE_SPAN_FRACTION * float(np.ptp(c)), TOLERANCE_JITTER_MULTIPLE * jitter)
 
 
 def _first_reversal(c: NDArray[np.float64], start: int, sign: int, tol: float) -> int | None:
@@ -260,28 +272,95 @@ def find_spikes(
     line through the next two points (extrapolated; the change across them is scaled by the
     extrapolation distance), on curves of at least six points.
     """
+    spike, score, _ = _spikes(speed_rpm, response_um_pp, threshold, every_score=True)
+    return spike, score
+
+
+class _NoiseScale:
+    """Hampel's noise scale ``sigma_i`` of the interior points of one curve (see
+    :func:`find_spikes`), evaluated where it is needed.
+
+    The moving median of ``|d|`` is the costliest step of despiking, yet few points need
+    it: every ``sigma_i`` is at least :attr:`lower` (the scale with the curve's median in
+    place of the window's), so a point whose deviation is within ``threshold * lower`` is
+    no spike whatever its window.  :meth:`at` takes the window median of given points only
+    (the same 21 values scipy's ``median_filter`` takes, so the same value); :meth:`full`
+    the whole moving median, when a rule needs every point.
+    """
+
+    def __init__(self, d: NDArray[np.float64], median_d: float, floor: float) -> None:
+        self.d, self.median_d, self.floor = d, median_d, floor
+        self.lower = float(np.maximum(median_d / _RAYLEIGH_MEDIAN, floor))
+        self._full: NDArray[np.float64] | None = None
+        # windows clipped by a short curve, or NaN (pointwise and scipy medians could then
+        # disagree): take the whole moving median from scipy
+        self._pointwise = (
+            d.size >= 2 * HAMPEL_HALF_WINDOW + 1 and math.isfinite(self.lower) and _all_finite(d)
+        )
+
+    def _scale(self, local: NDArray[np.float64]) -> NDArray[np.float64]:
+        return np.maximum(np.maximum(local, self.median_d) / _RAYLEIGH_MEDIAN, self.floor)
+
+    def full(self) -> NDArray[np.float64]:
+        """``sigma`` of every interior point."""
+        if self._full is None:
+            size = min(2 * HAMPEL_HALF_WINDOW + 1, self.d.size)
+            self._full = self._scale(median_filter(self.d, size=size, mode="nearest"))
+        return self._full
+
+    def at(self, i: NDArray[np.intp]) -> NDArray[np.float64]:
+        """``sigma`` of the interior points ``i`` (indices into ``d``)."""
+        if self._full is not None or not self._pointwise:
+            return self.full()[i]
+        h = HAMPEL_HALF_WINDOW
+        # the window of 21 points around each, edge values repeated ("nearest", as scipy)
+        window = self.d[np.clip(i[:, None] + np.arange(-h, h + 1), 0, self.d.size - 1)]
+        return self._scale(np.partition(window, h, axis=1)[:, h])
+
+
+def _spikes(
+    speed_rpm: ArrayLike, response_um_pp: ArrayLike, threshold: float, *, every_score: bool = False
+) -> tuple[NDArray[np.bool_], NDArray[np.float64], float | None]:
+    """:func:`find_spikes`, plus the curve's noise sigma as :func:`_noise_sigma` would
+    compute it (``None`` for fewer than three points).
+
+    The spikes are the same either way; the score of a point that is no spike is given
+    only with ``every_score`` (else 0), which spares the moving median of most points.
+    The noise sigma comes from the same median of ``|d|`` that sets the global scale here;
+    returning it spares :func:`condition` a second residual and median when no spike is
+    removed (the curve is then unchanged, so the value is exactly the same).
+    """
     s = np.asarray(speed_rpm, dtype=float)
     x = np.asarray(response_um_pp, dtype=complex)
     spike = np.zeros(x.size, dtype=bool)
     score = np.zeros(x.size, dtype=float)
     if x.size < 3:
-        return spike, score
+        return spike, score, None
     d = np.abs(_interpolation_residual(s, x))
-    size = min(2 * HAMPEL_HALF_WINDOW + 1, d.size)
-    local = median_filter(d, size=size, mode="nearest")
-    sigma = np.maximum(np.maximum(local, np.median(d)) / _RAYLEIGH_MEDIAN, _floor(x))
-    score[1:-1] = d / sigma
-    across = np.abs(x[2:] - x[:-2])
-    spike[1:-1] = (score[1:-1] > threshold) & (d > ISOLATION_RATIO * across)
+    median_d, floor = np.median(d), _floor(x)
+    scale = _NoiseScale(d, median_d, floor)
+    isolated = d > ISOLATION_RATIO * np.abs(x[2:] - x[:-2])
+    if every_score:
+        score[1:-1] = d / scale.full()
+        spike[1:-1] = (score[1:-1] > threshold) & isolated
+    else:
+        # d / sigma > threshold needs d / lower > threshold (sigma >= lower, and rounding
+        # keeps the order), so only those points are scored
+        maybe = np.flatnonzero((d / scale.lower > threshold) & isolated)
+        hit = d[maybe] / scale.at(maybe)
+        over = hit > threshold
+        spike[maybe[over] + 1] = True
+        score[maybe[over] + 1] = hit[over]
     if x.size >= 6:
-        _pairs_and_ends(s, x, np.concatenate([[sigma[0]], sigma, [sigma[-1]]]), threshold, spike, score)
-    return spike, score
+        _pairs_and_ends(s, x, scale, threshold, spike, score)
+    noise = max(float(median_d) / _RAYLEIGH_MEDIAN / math.sqrt(1.5), floor)
+    return spike, score, noise
 
 
 def _pairs_and_ends(
     s: NDArray[np.float64],
     x: NDArray[np.complex128],
-    sigma: NDArray[np.float64],
+    scale: _NoiseScale,
     threshold: float,
     spike: NDArray[np.bool_],
     score: NDArray[np.float64],
@@ -290,18 +369,28 @@ def _pairs_and_ends(
     at the ends of a curve, judged by the same two rules against the line through the
     nearest two good points (interpolated across a pair, extrapolated at an end)."""
 
+    @functools.cache
+    def median_sigma() -> float:
+        """The curve's median scale (the end points take their neighbours' scale), for
+        the end judgements: it needs every point's scale, so it is computed once and only
+        when a judgement gets to need it."""
+        sigma = scale.full()
+        return float(np.median(np.concatenate([[sigma[0]], sigma, [sigma[-1]]])))
+
     def judge(idx: list[int], a: int, b: int) -> None:
         if spike[a] or spike[b] or any(spike[i] for i in idx):
             return
         slope = (x[b] - x[a]) / (s[b] - s[a])
         dev = np.array([abs(x[i] - (x[a] + slope * (s[i] - s[a]))) for i in idx])
         change = abs(x[b] - x[a]) * max(1.0, max(abs(s[i] - s[a]) for i in idx) / abs(s[b] - s[a]))
+        if not np.all(dev > ISOLATION_RATIO * change):  # not isolated: no glitch, any scale
+            return
         # the local scale at an end is itself inflated by the glitch: use the curve's median
         # scale, widened for extrapolation: x_i - [x_a + t (x_b - x_a)] has variance
         # (1 + (1 - t)^2 + t^2) sigma_point^2 against 1.5 sigma_point^2 for the interior rule
         t = np.array([(s[i] - s[a]) / (s[b] - s[a]) for i in idx])
-        sig = float(np.median(sigma)) * np.sqrt((1.0 + (1.0 - t) ** 2 + t**2) / 1.5)
-        if np.all(dev > threshold * sig) and np.all(dev > ISOLATION_RATIO * change):
+        sig = median_sigma() * np.sqrt((1.0 + (1.0 - t) ** 2 + t**2) / 1.5)
+        if np.all(dev > threshold * sig):
             for i, d_i, g in zip(idx, dev, sig, strict=True):
                 spike[i] = True
                 score[i] = d_i / g
@@ -311,19 +400,23 @@ def _pairs_and_ends(
     judge([n - 2, n - 1], n - 4, n - 3)
     judge([0], 1, 2)  # the first point alone
     judge([n - 1], n - 3, n - 2)
-    # interior pairs: both points stand off the line through their outer neighbours
-    w1 = (s[1:-2] - s[:-3]) / (s[3:] - s[:-3])
-    w2 = (s[2:-1] - s[:-3]) / (s[3:] - s[:-3])
-    d1 = np.abs(x[1:-2] - (x[:-3] + w1 * (x[3:] - x[:-3])))
-    d2 = np.abs(x[2:-1] - (x[:-3] + w2 * (x[3:] - x[:-3])))
-    across = np.abs(x[3:] - x[:-3])
-    sig = np.maximum(sigma[1:-2], sigma[2:-1])
-    pair = (np.minimum(d1, d2) > threshold * sig) & (np.minimum(d1, d2) > ISOLATION_RATIO * across)
+    # interior pairs (points k + 1, k + 2): both stand off the line through their outer
+    # neighbours, beyond the larger scale of the two (interior scales k and k + 1)
+    ds, dx = s[3:] - s[:-3], x[3:] - x[:-3]
+    w1 = (s[1:-2] - s[:-3]) / ds
+    w2 = (s[2:-1] - s[:-3]) / ds
+    d1 = np.abs(x[1:-2] - (x[:-3] + w1 * dx))
+    d2 = np.abs(x[2:-1] - (x[:-3] + w2 * dx))
+    d_min = np.minimum(d1, d2)
+    # as for single points, only pairs beyond threshold * lower can be beyond threshold * sig
+    maybe = np.flatnonzero((d_min > threshold * scale.lower) & (d_min > ISOLATION_RATIO * np.abs(dx)))
+    sig = dict(zip(maybe.tolist(), np.maximum(scale.at(maybe), scale.at(maybe + 1)).tolist(), strict=True))
+    pair = [k for k in maybe.tolist() if d_min[k] > threshold * sig[k]]
     # overlapping candidates (a good point beside a bad pair also stands off its line): take
     # the strongest first, then those that do not touch it
-    ranked = sorted(np.nonzero(pair)[0], key=lambda k: -float(min(d1[k], d2[k]) / sig[k]))
+    ranked = sorted(pair, key=lambda k: -float(min(d1[k], d2[k]) / sig[k]))
     for k in ranked:
-        i = int(k) + 1
+        i = k + 1
         if not (spike[i - 1] or spike[i] or spike[i + 1] or spike[i + 2]):
             spike[i] = spike[i + 1] = True
             score[i], score[i + 1] = d1[k] / sig[k], d2[k] / sig[k]
@@ -470,11 +563,14 @@ def _slow_roll(
     raw: NDArray[np.complex128],
     option: SlowRollOption,
     where: str,
+    noise: float | None = None,
 ) -> tuple[SlowRoll | None, list[str]]:
-    """The slow-roll vector of one curve and warning sentences."""
+    """The slow-roll vector of one curve and warning sentences (``noise``: the curve's
+    :func:`_noise_sigma` when already known)."""
     if option == "off":
         return None, []
-    noise = _noise_sigma(speed, raw)
+    if noise is None:
+        noise = _noise_sigma(speed, raw)
     if option == "auto":
         choice = auto_slow_roll_window(speed, raw, noise_um_pp=noise)
         if choice.window_rpm is None:
@@ -529,11 +625,45 @@ def _rows_text(rows: NDArray[np.int64]) -> str:
     return shown + (f" and {rows.size - 5} more" if rows.size > 5 else "")
 
 
-def _missing(df: pd.DataFrame) -> tuple[NDArray[np.bool_], list[Correction]]:
-    bad = (
-        df["speed_rpm"].isna() | df["amplitude_um_pp"].isna() | df["phase_lag_deg"].isna()
-    ).to_numpy()
-    corrections = []
+@dataclass(frozen=True)
+class _Rows:
+    """The sample columns conditioning works on, as aligned numpy arrays (one per row).
+
+    ``probe`` holds integer codes into ``probe_names``, numbered in order of first
+    appearance (:func:`pandas.factorize`), so that rows are grouped without comparing
+    Python strings again.
+    """
+
+    speed: NDArray[np.float64]
+    probe: NDArray[np.intp]
+    probe_names: NDArray[np.object_]
+    order: NDArray[np.int64]
+    amplitude: NDArray[np.float64]
+    phase: NDArray[np.float64]
+    time: NDArray[np.float64]
+    row: NDArray[np.int64]
+
+
+def _all_finite(values: NDArray[np.float64]) -> bool:
+    """Whether every value is finite, usually without a mask: a sum is finite only when
+    every term is (a non-finite sum can still be an overflow, so it is checked again)."""
+    with np.errstate(invalid="ignore", over="ignore"):  # inf - inf, overflow: checked again
+        total = np.add.reduce(values)
+    return bool(np.isfinite(total) or np.isfinite(values).all())
+
+
+def _missing(df: pd.DataFrame) -> tuple[NDArray[np.bool_] | None, list[Correction]]:
+    """Rows with a missing speed, amplitude or phase (``None`` when there is none) and
+    their records."""
+    columns = [df[c].to_numpy() for c in ("speed_rpm", "amplitude_um_pp", "phase_lag_deg")]
+    # a NaN makes a sum NaN: a record without missing values needs no mask (the usual case)
+    with np.errstate(invalid="ignore", over="ignore"):  # inf - inf is NaN too: checked below
+        if not any(np.isnan(np.add.reduce(v)) for v in columns):
+            return None, []
+    bad = np.isnan(columns[0]) | np.isnan(columns[1]) | np.isnan(columns[2])
+    corrections: list[Correction] = []
+    if not bad.any():  # the sum was an infinity minus an infinity, not a missing value
+        return None, corrections
     for (probe, order), group in df.loc[bad].groupby(["probe", "order"], sort=False):
         rows = group["row"].to_numpy()
         corrections.append(Correction(
@@ -544,21 +674,30 @@ def _missing(df: pd.DataFrame) -> tuple[NDArray[np.bool_], list[Correction]]:
     return bad, corrections
 
 
+def _valid_rows(df: pd.DataFrame, bad: NDArray[np.bool_] | None) -> _Rows:
+    """The rows of ``df`` not flagged ``bad``, as arrays (views of ``df`` when ``bad`` is
+    ``None``)."""
+    columns = ("speed_rpm", "probe", "order", "amplitude_um_pp", "phase_lag_deg", "time_s", "row")
+    keep = None if bad is None else ~bad
+    speed, probe, order, amp, phase, time, row = (
+        df[c].to_numpy() if keep is None else df[c].to_numpy()[keep] for c in columns
+    )
+    codes, names = pd.factorize(probe)
+    return _Rows(speed, codes, names, order, amp, phase, time, row)
+
+
 def _sample_ids(speed: NDArray[np.float64], time: NDArray[np.float64]) -> NDArray[np.int64]:
     """One id per sample: rows sharing a time stamp (or, without time, a speed) in a row."""
-    key = time if np.isfinite(time).all() else speed
-    change = np.empty(key.size, dtype=bool)
-    change[:1] = True
-    change[1:] = key[1:] != key[:-1]
-    return np.cumsum(change) - 1
+    sid = np.cumsum(_change(time if _all_finite(time) else speed))
+    sid -= 1  # in place: the ids of a large record are a large array
+    return sid
 
 
 def _segments(
-    df: pd.DataFrame, tol: float, min_points: int, default_direction: str
+    rows: _Rows, tol: float, min_points: int, default_direction: str
 ) -> tuple[NDArray[np.int64], tuple[Segment, ...], list[Correction]]:
     """Per-row segment labels (-1 = dropped) and the kept segments."""
-    speed = df["speed_rpm"].to_numpy()
-    time = df["time_s"].to_numpy()
+    speed, time = rows.speed, rows.time
     sid = _sample_ids(speed, time)
     n_samples = int(sid[-1]) + 1
     count = np.bincount(sid, minlength=n_samples)
@@ -566,7 +705,8 @@ def _segments(
     s_time = np.bincount(sid, weights=time, minlength=n_samples) / count
     s_label, signs = _segment_labels(s_speed, tol)
     record_range = float(np.ptp(s_speed))
-    row_label = s_label[sid]
+    # rows per segment, counted over the samples (label -1, non-finite speed: slot 0)
+    rows_per_label = np.bincount(s_label + 1, weights=count, minlength=len(signs) + 1)[1:]
     new_index = np.full(len(signs), -1, dtype=np.int64)
     segments: list[Segment] = []
     corrections: list[Correction] = []
@@ -577,9 +717,9 @@ def _segments(
         n_distinct = np.unique(sp).size
         span = float(np.ptp(sp))
         if n_distinct < min_points or span < MIN_SEGMENT_SPAN_FRACTION * record_range:
-            rows = df["row"].to_numpy()[row_label == k]
+            dropped_rows = rows.row[(s_label == k)[sid]]
             corrections.append(Correction(
-                "segment_dropped", None, None, None, None, tuple(rows.tolist()),
+                "segment_dropped", None, None, None, None, tuple(dropped_rows.tolist()),
                 f"{direction} segment {sp[0]:.0f}-{sp[-1]:.0f} rpm dropped: {n_distinct} "
                 f"distinct speed(s), span {span:.0f} rpm (minimum {min_points} speeds and "
                 f"{MIN_SEGMENT_SPAN_FRACTION:.0%} of the {record_range:.0f} rpm range).",
@@ -595,10 +735,220 @@ def _segments(
             if pos.any():
                 rate = float(np.median(np.abs(ds[pos] / dt[pos])))
         segments.append(Segment(
-            len(segments), direction, float(sp[0]), float(sp[-1]),
-            int(np.count_nonzero(row_label == k)), rate,
+            len(segments), direction, float(sp[0]), float(sp[-1]), int(rows_per_label[k]), rate,
         ))
-    return new_index[row_label], tuple(segments), corrections
+    return new_index[s_label][sid], tuple(segments), corrections
+
+
+def _curve_rows(
+    key: NDArray[np.int64], speed: NDArray[np.float64]
+) -> Iterator[tuple[int, NDArray[np.intp]]]:
+    """The rows of each curve: ``(key, rows sorted by speed)``, keys ascending; rows of a
+    negative key belong to no curve.
+
+    The same grouping and order as ``numpy.lexsort((speed, key))``: by key, then speed,
+    then position.  lexsort of a few hundred thousand rows is slow; here the key takes few
+    values (one per curve), so a stable sort on the key (numpy sorts 16-bit integers by
+    radix) followed by a stable sort of each curve's speeds gives the same permutation
+    faster.  Stable sorts keep rows of equal key and speed in position order, as lexsort
+    does.  The speed sort is skipped where the speeds already ascend, and reused where a
+    curve's speeds equal an earlier curve's (probes sampled together share their speeds).
+    """
+    if key.size == 0:
+        return
+    small = int(key.min()) >= -1 and int(key.max()) < np.iinfo(np.int16).max
+    if not small:
+        order = np.lexsort((speed, key))
+        k_sorted = key[order]
+        bounds = np.flatnonzero(k_sorted[1:] != k_sorted[:-1]) + 1
+        for a, b in zip(np.append(0, bounds), np.append(bounds, key.size), strict=True):
+            if k_sorted[a] >= 0:
+                yield int(k_sorted[a]), order[a:b]
+        return
+    key16 = key.astype(np.int16)
+    order = np.argsort(key16, kind="stable")
+    sorted_keys = key16[order]
+    keys = np.arange(int(sorted_keys[-1]) + 1, dtype=np.int16)
+    starts = np.searchsorted(sorted_keys, keys, side="left")
+    ends = np.searchsorted(sorted_keys, keys, side="right")
+    seen: dict[tuple[int, float, float], tuple[NDArray[np.float64], NDArray[np.intp]]] = {}
+    for k, a, b in zip(keys.tolist(), starts.tolist(), ends.tolist(), strict=True):
+        if a < b:
+            part = order[a:b]
+            yield k, part[_stable_speed_order(speed[part], seen)]
+
+
+def _stable_speed_order(
+    sp: NDArray[np.float64],
+    seen: dict[tuple[int, float, float], tuple[NDArray[np.float64], NDArray[np.intp]]],
+) -> NDArray[np.intp] | slice:
+    """``numpy.argsort(sp, kind="stable")``, or a slice doing the same when ``sp`` already
+    ascends; ``seen`` remembers the sorts done, and an equal array reuses its own (the
+    stable order depends on the values alone)."""
+    if np.all(sp[1:] >= sp[:-1]):  # false at a NaN too: then sorted, NaN last as lexsort
+        return slice(None)
+    tag = (sp.size, float(sp[0]), float(sp[-1]))
+    if tag in seen and np.array_equal(seen[tag][0], sp):
+        return seen[tag][1]
+    perm = np.argsort(sp, kind="stable")
+    seen[tag] = (sp, perm)
+    return perm
+
+
+def _points(
+    speed: NDArray[np.float64], x: NDArray[np.complex128], time: NDArray[np.float64]
+) -> tuple[NDArray[np.float64], NDArray[np.complex128], NDArray[np.float64], NDArray[np.int64]]:
+    """Merge the rows of equal speed of one curve (sorted by speed): the speeds, mean
+    vectors and mean times of its points and the rows in each."""
+    new_point = np.ones(speed.size, dtype=bool)
+    new_point[1:] = speed[1:] != speed[:-1]
+    starts = np.flatnonzero(new_point)
+    counts = np.diff(np.append(starts, speed.size))
+    return speed[starts], _point_means(x, starts, counts), _point_means(time, starts, counts), counts
+
+
+def _point_means(values: NDArray, starts: NDArray[np.intp], counts: NDArray[np.int64]) -> NDArray:
+    """Mean of the rows of each point: ``add.reduceat(values, starts) / counts``.
+
+    When every point is a single row the sums are the values themselves, so the
+    reduction is skipped; the division is kept so that the result is the same bits.
+    """
+    if starts.size == values.size:
+        return values / counts
+    return np.add.reduceat(values, starts) / counts if starts.size else values[:0]
+
+
+@dataclass(frozen=True)
+class _CurveOptions:
+    """The options of :func:`condition` that act on each curve."""
+
+    slow_roll: SlowRollOption
+    despike: bool
+    spike_threshold: float
+    min_points: int
+
+
+@dataclass(frozen=True)
+class _CurveJob:
+    """One curve to condition: probe, order, segment and its rows (sorted by speed)."""
+
+    probe: str
+    order: int
+    segment: Segment
+    rows: NDArray[np.intp]
+
+
+#: Curves are conditioned in parallel threads when there are several and together they hold
+#: at least this many rows.  The work per curve (complex exponentials, moving medians,
+#: medians) runs mostly in numpy with the GIL released, so on a multi-core machine threads
+#: shorten a large record's conditioning; below this size thread start-up outweighs it.
+PARALLEL_MIN_ROWS = 50_000
+
+
+def _map_curves(
+    rows: _Rows, jobs: list[_CurveJob], options: _CurveOptions
+) -> Iterator[tuple[list[Correction], list[str], Curve | None]]:
+    """:func:`_condition_curve` of each job, in the order of ``jobs``.
+
+    Each curve is computed independently of the others, so running them in threads gives
+    exactly the results of running them one after the other; ``map`` returns them in job
+    order and raises the first error in that order.
+    """
+    workers = min(len(jobs), os.cpu_count() or 1)
+    if workers < 2 or sum(job.rows.size for job in jobs) < PARALLEL_MIN_ROWS:
+        return (_condition_curve(rows, job, options) for job in jobs)
+    with ThreadPoolExecutor(max_workers=workers) as pool:
+        return iter(list(pool.map(lambda job: _condition_curve(rows, job, options), jobs)))
+
+
+def _condition_curve(
+    rows: _Rows, job: _CurveJob, options: _CurveOptions
+) -> tuple[list[Correction], list[str], Curve | None]:
+    """Steps 3 to 7 of :func:`condition` for one curve: its correction records, its
+    warnings and the curve (``None`` when dropped)."""
+    probe, order_n, seg, idx = job.probe, job.order, job.segment, job.rows
+    where = f"probe {probe} order {order_n} {seg.label}"
+    corrections: list[Correction] = []
+    sp, cx, ct, cnt = _points(
+        rows.speed[idx], to_response(rows.amplitude[idx], rows.phase[idx]), rows.time[idx]
+    )
+    c_rows = rows.row[idx]
+    if np.any(cnt > 1):
+        merged = c_rows[np.repeat(cnt > 1, cnt)]
+        corrections.append(Correction(
+            "duplicates_merged", probe, order_n, seg.index, None, tuple(merged.tolist()),
+            f"{where}: {int((cnt - 1).sum())} duplicate-speed row(s) merged into "
+            f"{int((cnt > 1).sum())} point(s) as complex vector means "
+            f"(rows {_rows_text(merged)}).",
+        ))
+    noise = None  # the curve's noise sigma, when despiking found it for the same points
+    if options.despike and sp.size >= 3:
+        spike, score, noise = _spikes(sp, cx, options.spike_threshold)
+        offsets = np.append(0, np.cumsum(cnt))
+        for i in np.flatnonzero(spike):
+            point_rows = c_rows[offsets[i] : offsets[i + 1]]
+            corrections.append(Correction(
+                "spike_removed", probe, order_n, seg.index, float(sp[i]),
+                tuple(point_rows.tolist()),
+                f"{where}: spike at {sp[i]:.1f} rpm removed, {score[i]:.1f} noise "
+                f"sigmas from its neighbours (rows {_rows_text(point_rows)}).",
+            ))
+        if spike.any():
+            sp, cx, ct = sp[~spike], cx[~spike], ct[~spike]
+            noise = None
+    if sp.size < options.min_points:
+        corrections.append(Correction(
+            "too_few_points", probe, order_n, seg.index, None, tuple(c_rows.tolist()),
+            f"{where}: curve dropped, {sp.size} point(s) left (minimum {options.min_points}).",
+        ))
+        return corrections, [], None
+    sr, warnings = _slow_roll(sp, cx, options.slow_roll, where, noise)
+    response = cx if sr is None else cx - sr.vector_um_pp
+    return corrections, warnings, Curve(
+        probe, order_n, seg.index, seg.direction, sp, response, cx, ct, sr
+    )
+
+
+def _no_curve_records(
+    df: pd.DataFrame, rows: _Rows, orders: NDArray[np.int64], keep: NDArray[np.bool_],
+    corrections: list[Correction], curves: list[Curve],
+) -> list[Correction]:
+    """``too_few_points`` records for the probe/orders of ``df`` left with neither a curve
+    nor such a record, in order of first appearance."""
+    accounted = {(c.probe, c.order) for c in curves}
+    accounted |= {(c.probe, c.order) for c in corrections if c.kind == "too_few_points"}
+    if not _may_lack_record(rows, orders, keep, corrections, accounted):
+        return []
+    out = []
+    for probe, order_n in df[["probe", "order"]].drop_duplicates().itertuples(index=False):
+        pair = (str(probe), int(order_n))
+        if pair not in accounted:
+            out.append(Correction(
+                "too_few_points", pair[0], pair[1], None, None, (),
+                f"probe {pair[0]} order {pair[1]}: no curve kept, all its rows were missing "
+                "or in dropped segments.",
+            ))
+    return out
+
+
+def _may_lack_record(
+    rows: _Rows, orders: NDArray[np.int64], keep: NDArray[np.bool_],
+    corrections: list[Correction], accounted: set[tuple[str, int]],
+) -> bool:
+    """Whether some probe/order might have neither a curve nor a ``too_few_points`` record.
+
+    Every probe/order with a row in a kept segment gets one of the two, so only those with
+    missing rows (their ``missing_dropped`` records) or rows in dropped segments can lack
+    both; this spares the scan of every row of the record in the usual case.
+    """
+    if (rows.probe < 0).any():  # a missing probe name (user-built Run): take the long way
+        return True
+    pairs = {(c.probe, c.order) for c in corrections if c.kind == "missing_dropped"}
+    if not keep.all():
+        key = rows.probe[~keep] * orders.size + np.searchsorted(orders, rows.order[~keep])
+        for k in np.unique(key):
+            pairs.add((str(rows.probe_names[k // orders.size]), int(orders[k % orders.size])))
+    return not pairs <= accounted
 
 
 def condition(
@@ -640,98 +990,61 @@ def condition(
     DataFormatError
         For invalid options, a record without any valid row, or an explicit slow-roll
         window holding fewer than 2 points of a curve.
+
+    Notes
+    -----
+    The curves of a large record (:data:`PARALLEL_MIN_ROWS` rows or more) are conditioned
+    in parallel threads; each curve is computed on its own, so the result is the same.
     """
     _check_options(slow_roll, spike_threshold, min_points)
     df = run.samples
     time_all = df["time_s"].to_numpy()
-    if np.isfinite(time_all).all() and np.any(np.diff(time_all) < 0):
+    if _all_finite(time_all) and np.any(time_all[1:] < time_all[:-1]):
         df = df.iloc[np.argsort(time_all, kind="stable")].reset_index(drop=True)
     bad, corrections = _missing(df)
-    valid = df.loc[~bad].reset_index(drop=True)
-    if valid.empty:
+    valid = _valid_rows(df, bad)
+    if valid.speed.size == 0:
         raise DataFormatError("no row has a speed, amplitude and phase; nothing to condition")
-    tol = _check_tolerance(valid["speed_rpm"].to_numpy(), segment_tolerance_rpm)
+    tol = _check_tolerance(valid.speed, segment_tolerance_rpm)
     default_direction = run.metadata.direction or "startup"
     label, segments, seg_corr = _segments(valid, tol, min_points, default_direction)
     corrections += seg_corr
 
-    probe_code, probe_names = pd.factorize(valid["probe"])
-    orders = np.sort(valid["order"].unique())
-    order_idx = np.searchsorted(orders, valid["order"].to_numpy())
+    probe_code, probe_names = valid.probe, valid.probe_names
+    if valid.order.min() == valid.order.max():  # one order (the usual 1X record)
+        orders, order_idx = valid.order[:1], 0
+    else:
+        orders = np.sort(pd.unique(valid.order))
+        order_idx = np.searchsorted(orders, valid.order)
     n_seg = max(len(segments), 1)
-    key = (probe_code * orders.size + order_idx) * n_seg + label
+    # key = (probe_code * orders.size + order_idx) * n_seg + label, built in place
+    key = probe_code * orders.size
+    key += order_idx
+    key *= n_seg
+    key += label
     keep = label >= 0
-    key, speed = key[keep], valid["speed_rpm"].to_numpy()[keep]
-    x = to_response(valid["amplitude_um_pp"].to_numpy()[keep],
-                    valid["phase_lag_deg"].to_numpy()[keep])
-    time, rows = valid["time_s"].to_numpy()[keep], valid["row"].to_numpy()[keep]
-    order = np.lexsort((speed, key))
-    key, speed, x, time, rows = key[order], speed[order], x[order], time[order], rows[order]
+    if not keep.all():
+        key[~keep] = -1  # rows of dropped segments belong to no curve
 
-    new_point = np.ones(key.size, dtype=bool)
-    new_point[1:] = (key[1:] != key[:-1]) | (speed[1:] != speed[:-1])
-    starts = np.flatnonzero(new_point)
-    counts = np.diff(np.append(starts, key.size))
-    p_key, p_speed = key[starts], speed[starts]
-    p_x = np.add.reduceat(x, starts) / counts if starts.size else x[:0]
-    p_time = np.add.reduceat(time, starts) / counts if starts.size else time[:0]
-    curve_starts = np.flatnonzero(np.diff(p_key, prepend=-1) != 0)
-    curve_ends = np.append(curve_starts[1:], p_key.size)[: curve_starts.size]
-
+    options = _CurveOptions(slow_roll, despike, spike_threshold, min_points)
+    jobs = [
+        _CurveJob(
+            str(probe_names[k // n_seg // orders.size]),
+            int(orders[(k // n_seg) % orders.size]),
+            segments[k % n_seg],
+            idx,
+        )
+        for k, idx in _curve_rows(key, valid.speed)
+    ]
     curves: list[Curve] = []
     warnings: list[str] = []
-    for c0, c1 in zip(curve_starts, curve_ends, strict=True):
-        k = int(p_key[c0])
-        probe = str(probe_names[k // n_seg // orders.size])
-        order_n = int(orders[(k // n_seg) % orders.size])
-        seg = segments[k % n_seg]
-        where = f"probe {probe} order {order_n} {seg.label}"
-        r0 = starts[c0]
-        r1 = starts[c1] if c1 < starts.size else key.size
-        cnt = counts[c0:c1]
-        c_rows = rows[r0:r1]
-        if np.any(cnt > 1):
-            merged = c_rows[np.repeat(cnt > 1, cnt)]
-            corrections.append(Correction(
-                "duplicates_merged", probe, order_n, seg.index, None, tuple(merged.tolist()),
-                f"{where}: {int((cnt - 1).sum())} duplicate-speed row(s) merged into "
-                f"{int((cnt > 1).sum())} point(s) as complex vector means "
-                f"(rows {_rows_text(merged)}).",
-            ))
-        sp, cx, ct = p_speed[c0:c1], p_x[c0:c1], p_time[c0:c1]
-        if despike and sp.size >= 3:
-            spike, score = find_spikes(sp, cx, threshold=spike_threshold)
-            offsets = np.append(0, np.cumsum(cnt))
-            for i in np.flatnonzero(spike):
-                point_rows = c_rows[offsets[i] : offsets[i + 1]]
-                corrections.append(Correction(
-                    "spike_removed", probe, order_n, seg.index, float(sp[i]),
-                    tuple(point_rows.tolist()),
-                    f"{where}: spike at {sp[i]:.1f} rpm removed, {score[i]:.1f} noise "
-                    f"sigmas from its neighbours (rows {_rows_text(point_rows)}).",
-                ))
-            sp, cx, ct = sp[~spike], cx[~spike], ct[~spike]
-        if sp.size < min_points:
-            corrections.append(Correction(
-                "too_few_points", probe, order_n, seg.index, None, tuple(c_rows.tolist()),
-                f"{where}: curve dropped, {sp.size} point(s) left (minimum {min_points}).",
-            ))
-            continue
-        sr, warn = _slow_roll(sp, cx, slow_roll, where)
-        warnings += warn
-        response = cx if sr is None else cx - sr.vector_um_pp
-        curves.append(Curve(probe, order_n, seg.index, seg.direction, sp, response, cx, ct, sr))
+    for curve_corrections, curve_warnings, curve in _map_curves(valid, jobs, options):
+        corrections += curve_corrections
+        warnings += curve_warnings
+        if curve is not None:
+            curves.append(curve)
 
-    kept = {(c.probe, c.order) for c in curves}
-    dropped = {(c.probe, c.order) for c in corrections if c.kind == "too_few_points"}
-    for probe, order_n in df[["probe", "order"]].drop_duplicates().itertuples(index=False):
-        pair = (str(probe), int(order_n))
-        if pair not in kept and pair not in dropped:
-            corrections.append(Correction(
-                "too_few_points", pair[0], pair[1], None, None, (),
-                f"probe {pair[0]} order {pair[1]}: no curve kept, all its rows were missing "
-                "or in dropped segments.",
-            ))
+    corrections += _no_curve_records(df, valid, orders, keep, corrections, curves)
     if not curves:
         warnings.append("No curve kept: every probe and segment had too few valid points.")
     settings = (

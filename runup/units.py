@@ -152,7 +152,7 @@ def parse_column_name(name: str) -> ColumnUnit | None:
 
 
 def amplitude_to_um_pp(
-    values: ArrayLike, *, unit: str, definition: str
+    values: ArrayLike, *, unit: str, definition: str, out: NDArray[np.float64] | None = None
 ) -> NDArray[np.float64]:
     """Convert vibration amplitudes to micrometres peak-to-peak.
 
@@ -165,6 +165,9 @@ def amplitude_to_um_pp(
     definition
         ``"pp"`` (peak-to-peak) or ``"0p"`` (zero-to-peak, i.e. half of pp for a sinusoid,
         which a filtered 1X component is).
+    out
+        Array to write the result into (as the ``out`` of a numpy ufunc); a new one when
+        ``None``.
     """
     try:
         factor = AMPLITUDE_UNITS[unit] * AMPLITUDE_DEFINITIONS[definition]
@@ -173,27 +176,33 @@ def amplitude_to_um_pp(
             f"unknown amplitude unit '{unit}' or definition '{definition}'; valid units "
             f"{sorted(AMPLITUDE_UNITS)}, definitions {sorted(AMPLITUDE_DEFINITIONS)}"
         ) from None
-    return np.asarray(values, dtype=float) * factor
+    return np.multiply(np.asarray(values, dtype=float), factor, out=out)
 
 
-def speed_to_rpm(values: ArrayLike, *, unit: str) -> NDArray[np.float64]:
-    """Convert shaft speeds to revolutions per minute (``"hz"`` means rev/s)."""
+def speed_to_rpm(
+    values: ArrayLike, *, unit: str, out: NDArray[np.float64] | None = None
+) -> NDArray[np.float64]:
+    """Convert shaft speeds to revolutions per minute (``"hz"`` means rev/s); ``out`` as
+    in :func:`amplitude_to_um_pp`."""
     try:
         factor = SPEED_UNITS[unit]
     except KeyError:
         raise UnitError(f"unknown speed unit '{unit}'; valid: {sorted(SPEED_UNITS)}") from None
-    return np.asarray(values, dtype=float) * factor
+    return np.multiply(np.asarray(values, dtype=float), factor, out=out)
 
 
-def phase_to_lag_deg(values: ArrayLike, *, unit: str, sense: str) -> NDArray[np.float64]:
-    """Convert phase angles to degrees of lag (``lag = -lead``), not wrapped."""
+def phase_to_lag_deg(
+    values: ArrayLike, *, unit: str, sense: str, out: NDArray[np.float64] | None = None
+) -> NDArray[np.float64]:
+    """Convert phase angles to degrees of lag (``lag = -lead``), not wrapped; ``out`` as
+    in :func:`amplitude_to_um_pp`."""
     if unit not in PHASE_UNITS or sense not in PHASE_SENSES:
         raise UnitError(
             f"unknown phase unit '{unit}' or sense '{sense}'; valid units "
             f"{sorted(PHASE_UNITS)}, senses {list(PHASE_SENSES)}"
         )
-    deg = np.asarray(values, dtype=float) * PHASE_UNITS[unit]
-    return deg if sense == "lag" else -deg
+    deg = np.multiply(np.asarray(values, dtype=float), PHASE_UNITS[unit], out=out)
+    return deg if sense == "lag" else np.negative(deg, out=out)
 
 
 def to_response(amplitude_um_pp: ArrayLike, phase_lag_deg: ArrayLike) -> NDArray[np.complex128]:

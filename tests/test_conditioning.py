@@ -425,3 +425,122 @@ def test_glitches_at_the_ends_and_in_pairs_are_removed_but_an_edge_resonance_is_
     edge = unbalance_response(edge_speed, natural_speed_rpm=3000.0, damping_ratio=0.02, modal_constant=10.0)
     spike, _ = find_spikes(edge_speed, edge)
     assert not spike.any()
+
+
+# ------------------------------------------------------------------ fast paths, same results
+def test_curve_rows_are_the_groups_of_lexsort():
+    """Rows grouped per curve and sorted by speed are exactly numpy.lexsort((speed, key)),
+    ties in position order, rows of a negative key left out; for small keys (radix path,
+    with sorted, unsorted and shared speed sequences) and for large ones (lexsort itself)."""
+    from runup.conditioning import _curve_rows
+
+    rng = np.random.default_rng(8)
+    shared = np.round(rng.uniform(100, 200, 300))  # ties; the same for several keys
+    for high in (6, 40_000):
+        key = rng.integers(-1, high, 3000)
+        key[:300] = high - 1
+        speed = np.round(rng.uniform(100, 200, 3000))
+        speed[key == 2] = np.sort(speed[key == 2])  # a curve already in order
+        speed[:300] = shared
+        speed[300:600] = shared
+        key[300:600] = 0 if high == 6 else 17
+        order = np.lexsort((speed, key))  # the reference
+        groups = [(int(k), order[key[order] == k]) for k in np.unique(key) if k >= 0]
+        got = list(_curve_rows(key, speed))
+        assert [k for k, _ in got] == [k for k, _ in groups]
+        for (_, rows), (_, ref) in zip(got, groups, strict=True):
+            np.testing.assert_array_equal(rows, ref)
+
+
+def test_pointwise_noise_scale_equals_scipy_median_filter():
+    """The noise scale evaluated at single points equals the one from scipy's moving median
+    (mode "nearest", 21 points), ties and curve ends included."""
+    from scipy.ndimage import median_filter
+
+    from runup.conditioning import _RAYLEIGH_MEDIAN, _NoiseScale
+
+    rng = np.random.default_rng(9)
+    for n in (21, 22, 57, 400):
+        d = np.round(np.abs(rng.standard_normal(n)), 1)  # rounded: many ties
+        median_d, floor = np.median(d), 1e-9
+        ref = np.maximum(np.maximum(median_filter(d, size=21, mode="nearest"), median_d) / _RAYLEIGH_MEDIAN, floor)
+        scale = _NoiseScale(d, median_d, floor)
+        idx = rng.permutation(n)
+        np.testing.assert_array_equal(scale.at(idx), ref[idx])
+        assert np.all(ref >= scale.lower)
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_despiking_scores_only_candidates_but_finds_the_same_spikes(seed):
+    """Despiking as conditioning runs it (window medians only where a spike is possible)
+    flags exactly the points find_spikes flags, with the same scores there, and returns the
+    noise sigma of the documented formula: median|d| / sqrt(2 ln 2) / sqrt(1.5) (Rayleigh
+    median; interpolation residual of evenly spaced points)."""
+    from runup.conditioning import _interpolation_residual, _spikes, find_spikes
+
+    rng = np.random.default_rng(seed)
+    n = int(rng.integers(30, 3000))
+    speed = np.sort(rng.uniform(300.0, 6000.0, n))
+    speed = np.unique(speed)
+    x = jeffcott(speed) + RUNOUT + noise(rng, speed.size, 0.05)
+    for i in rng.choice(speed.size, 6, replace=False):  # single spikes
+        x[i] *= 5
+    for i in rng.choice(speed.size - 1, 2, replace=False):  # pairs
+        x[i : i + 2] = 6 * np.abs(x[i : i + 2]) * np.exp(1j * rng.uniform(0, 6.3))
+    x[:2] *= 4 if seed % 2 else 1  # glitches at the start on half the cases
+    for threshold in (3.0, 6.0):
+        spike, score = find_spikes(speed, x, threshold=threshold)
+        fast, fast_score, sigma = _spikes(speed, x, threshold)
+        np.testing.assert_array_equal(fast, spike)
+        np.testing.assert_array_equal(fast_score[spike], score[spike])
+        d = np.abs(_interpolation_residual(speed, x))
+        assert sigma == max(float(np.median(d)) / np.sqrt(2 * np.log(2)) / np.sqrt(1.5),
+                            1e-9 * float(np.abs(x).max()))
+
+
+def test_threads_do_not_change_the_result(monkeypatch):
+    """Conditioning curves in parallel threads gives the same curves, records and warnings,
+    bit for bit and in the same order, as conditioning them one after the other."""
+    import runup.conditioning as conditioning
+
+    rng = np.random.default_rng(12)
+    speed = np.round(np.r_[np.linspace(200.0, 6000.0, 3000), np.linspace(6000.0, 300.0, 3000)])
+    vectors = {p: jeffcott(speed) * (1 + k) + RUNOUT + noise(rng, speed.size, 0.05) for k, p in enumerate("ABCD")}
+    for x in vectors.values():
+        x[rng.choice(speed.size, 4, replace=False)] *= 6
+    run = make_run(speed, vectors, time_s=np.arange(speed.size) * 0.1)
+    results = []
+    for min_rows in (10**12, 0):  # serial, then threaded
+        monkeypatch.setattr(conditioning, "PARALLEL_MIN_ROWS", min_rows)
+        results.append(condition(run))
+    serial, threaded = results
+    assert len(serial.curves) == 8
+    assert serial.corrections == threaded.corrections and serial.warnings == threaded.warnings
+    for a, b in zip(serial.curves, threaded.curves, strict=True):
+        assert a.key == b.key and a.slow_roll == b.slow_roll
+        for name in ("speed_rpm", "response_um_pp", "raw_response_um_pp", "time_s"):
+            np.testing.assert_array_equal(getattr(a, name), getattr(b, name))
+
+
+def test_probe_only_in_a_dropped_segment_is_recorded():
+    """A probe whose rows all lie in a dropped segment has no curve and a record saying so."""
+    speed = np.r_[np.linspace(200.0, 6000.0, 100), [5500.0, 5000.0, 4500.0]]  # 3-sample coastdown
+    run = make_run(speed, {"A": jeffcott(speed)}, time_s=np.arange(speed.size, dtype=float))
+    df = run.samples.copy()
+    df.loc[df.index[-3:], "probe"] = "B"
+    cr = condition(Run(RunMetadata(), df), slow_roll="off")
+    assert {c.probe for c in cr.curves} == {"A"}
+    (rec,) = [c for c in kinds(cr, "too_few_points") if c.probe == "B"]
+    assert "no curve kept" in rec.detail and kinds(cr, "segment_dropped")
+
+
+def test_infinite_phase_is_not_a_missing_value():
+    """Only NaN marks a missing value (pandas.isna is False for an infinity): rows with a
+    phase of +inf and -inf are not reported as missing."""
+    speed = np.linspace(200.0, 6000.0, 60)
+    df = make_run(speed, {"A": jeffcott(speed)}).samples.copy()
+    df.loc[[5, 9], "phase_lag_deg"] = [np.inf, -np.inf]
+    assert not pd.isna(df["phase_lag_deg"]).any()
+    with np.errstate(invalid="ignore"):  # exp(-1j * inf) is NaN, with numpy's warning
+        cr = condition(Run(RunMetadata(), df), slow_roll="off", despike=False)
+    assert kinds(cr, "missing_dropped") == []

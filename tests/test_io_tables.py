@@ -7,7 +7,6 @@ from __future__ import annotations
 
 import hashlib
 import math
-import time
 
 import numpy as np
 import pandas as pd
@@ -507,8 +506,9 @@ def test_parquet_string_cells_located(tmp_path):
     assert (e.value.column, e.value.row) == ("speed_rpm", 3)
 
 
-def test_large_import_is_fast(tmp_path):
-    """8 probes x 50,000 points (400k samples) import from CSV in under two seconds."""
+def test_large_wide_import_matches_pandas(tmp_path):
+    """8 probes x 50,000 points (400k samples, wide layout) import row by row, probes in
+    header order, with the values pandas.read_csv reads (speed is timed in benchmarks/)."""
     rng = np.random.default_rng(3)
     n = 50_000
     cols = {"time_s": np.arange(n) * 0.01, "speed_rpm": np.linspace(300.0, 12000.0, n)}
@@ -517,13 +517,14 @@ def test_large_import_is_fast(tmp_path):
         cols[f"P{k}.phase_lag_deg"] = rng.uniform(0, 360, n)
     path = tmp_path / "big.csv"
     pd.DataFrame(cols).to_csv(path, index=False)
-    t0 = time.perf_counter()
-    run = read_run(path)
-    elapsed = time.perf_counter() - t0
-    assert len(run.samples) == 8 * n
-    # Measured ~0.3-0.4 s on the development machine; 2 s is the brief's ceiling and leaves
-    # a 5x margin for slower CI hosts.
-    assert elapsed < 2.0
+    ref = pd.read_csv(path)  # an independent CSV parser
+    s = read_run(path).samples
+    assert len(s) == 8 * n
+    assert s["probe"].tolist()[:9] == [f"P{k}" for k in range(8)] + ["P0"]
+    amp = s["amplitude_um_pp"].to_numpy().reshape(n, 8)
+    # both parsers round-trip the shortest repr exactly; RTOL only guards the parser choice
+    assert_allclose(amp, ref[[f"P{k}.amplitude_um_pp" for k in range(8)]].to_numpy(), rtol=RTOL)
+    assert_allclose(s["speed_rpm"].to_numpy()[::8], ref["speed_rpm"], rtol=RTOL)
 
 
 def test_wide_order_column_rejected(tmp_path):
@@ -562,3 +563,99 @@ def test_too_few_points_names_wide_probe_column(tmp_path):
     ) as e:
         read_run(write(tmp_path, "w.csv", text))
     assert e.value.column == "NDE.amplitude_um_pp"
+
+
+# -- the fast paths give what the plain reading gives -------------------------------------
+
+
+def test_probe_names_trimmed_and_merged_across_parse_blocks(tmp_path):
+    """Probe names padded with spaces, in a file large enough to be parsed in several blocks
+    whose first names differ, import as the trimmed names Python's csv module reads."""
+    import csv
+
+    rng = np.random.default_rng(5)
+    n = 80_000  # ~2.5 MB: pyarrow parses 1 MB blocks, each with its own dictionary
+    pools = [[" B1X", "B1X"], ["B2Y ", "  N D E  ", "B1X "], ["N D E", "B2Y"]]
+    names = np.concatenate([rng.choice(pool, n // 3 + 1) for pool in pools])[:n]
+    frame = pd.DataFrame(
+        {
+            "speed_rpm": np.linspace(300.0, 9000.0, n),
+            "probe": names,
+            "amplitude_um_pp": rng.uniform(0, 50, n),
+            "phase_lag_deg": rng.uniform(0, 360, n),
+        }
+    )
+    path = tmp_path / "blocks.csv"
+    frame.to_csv(path, index=False)
+    with open(path, newline="", encoding="utf-8") as f:  # an independent CSV reader
+        expected = [row[1].strip() for row in list(csv.reader(f))[1:]]
+    run = read_run(path)
+    probe = run.samples["probe"]
+    assert probe.tolist() == expected
+    assert probe.dtype == object and {type(p) for p in probe} == {str}
+    assert run.probe_names == tuple(dict.fromkeys(expected))
+    assert [p.name for p in run.metadata.probes] == sorted(set(expected))
+
+
+def test_parquet_row_groups_with_different_probes(tmp_path):
+    """A Parquet file whose row groups hold different probe names (so different dictionaries)
+    imports the names pandas.read_parquet reads, trimmed."""
+    import pyarrow.parquet as pq
+
+    frames = [
+        pd.DataFrame({"speed_rpm": 1000.0 + np.arange(30), "probe": p, "amplitude_um_pp": 1.0,
+                      "phase_lag_deg": 2.0})
+        for group in (["A", "B"], ["C", " A"], ["B", "D", "A "])
+        for p in group
+    ]
+    frame = pd.concat(frames, ignore_index=True)
+    path = tmp_path / "groups.parquet"
+    pq.write_table(pa_table(frame), path, row_group_size=60)
+    assert pq.ParquetFile(path).metadata.num_row_groups > 1
+    expected = [p.strip() for p in pd.read_parquet(path)["probe"]]
+    assert read_run(path).samples["probe"].tolist() == expected
+
+
+def test_parquet_integer_probe_names_become_text(tmp_path):
+    """Integer probe identifiers in Parquet become their decimal text (str of the integer)."""
+    frame = pd.DataFrame({"speed_rpm": np.arange(1000.0, 1600.0, 50.0), "probe": [7, 12] * 6,
+                          "amplitude_um_pp": 1.0, "phase_lag_deg": 2.0})
+    frame.to_parquet(tmp_path / "i.parquet")
+    s = read_run(tmp_path / "i.parquet").samples
+    assert s["probe"].tolist() == [str(p) for p in frame["probe"]]
+
+
+def test_samples_are_plain_writable_columns(tmp_path):
+    """The imported columns can be changed in place like any DataFrame's, without touching
+    another import of the same file (pandas semantics)."""
+    path = write(tmp_path, "w.csv", long_csv(6))
+    a, b = read_run(path).samples, read_run(path).samples
+    a.loc[0, ["speed_rpm", "amplitude_um_pp", "time_s"]] = [1.0, 2.0, 3.0]
+    a.loc[0, ["order", "row"]] = [2, 99]
+    a.loc[0, "probe"] = "Z"
+    assert a.iloc[0].tolist() == [1.0, "Z", 2, 2.0, 20.0, 3.0, 99]
+    assert b.iloc[0].tolist()[:3] == [1000.0, "A", 1] and b["row"].iloc[0] == 1
+
+
+def test_too_few_points_with_high_orders(tmp_path):
+    """The first probe/order short of points is named also when orders are large (counted by
+    sorting rather than by a table of all keys); the count is the one pandas groupby gives."""
+    rows = [(1000 + 10 * i, "A", 1) for i in range(6)] + [(1000 + 10 * i, "A", 1000) for i in range(3)]
+    rows += [(1000 + 10 * i, "B", 2) for i in range(2)]
+    frame = pd.DataFrame(rows, columns=["speed_rpm", "probe", "order"]).assign(
+        amplitude_um_pp=1.0, phase_lag_deg=1.0
+    )
+    counts = frame.groupby(["probe", "order"]).size()
+    path = tmp_path / "o.csv"
+    frame.to_csv(path, index=False)
+    with pytest.raises(DataFormatError, match=f"probe 'A' \\(order 1000\\) has {counts['A', 1000]} samples"):
+        read_run(path)
+    frame[frame["order"] != 1000].to_csv(path, index=False)
+    with pytest.raises(DataFormatError, match=f"probe 'B' \\(order 2\\) has {counts['B', 2]} samples"):
+        read_run(path)
+
+
+def pa_table(frame: pd.DataFrame):
+    import pyarrow as pa
+
+    return pa.Table.from_pandas(frame, preserve_index=False)

@@ -16,6 +16,8 @@ from __future__ import annotations
 import csv
 import hashlib
 import os
+import re
+import threading
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -30,7 +32,7 @@ import pyarrow.parquet as pq
 from numpy.typing import NDArray
 
 from ..errors import DataFormatError, RunupError, UnitError
-from ..run import SAMPLE_COLUMNS, Run, RunMetadata, SourceFile
+from ..run import Run, RunMetadata, SourceFile
 from ..units import (
     ColumnUnit,
     amplitude_to_um_pp,
@@ -179,12 +181,14 @@ def read_run(
     table = _CsvTable(data, file=file) if reader == "csv" else _ParquetTable(data, file=file)
     cmap = _merge_maps(side.column_map if side else {}, column_map or {})
     layout = _detect(table.header, cmap, file=file)
-    numeric = [c.index for c in layout.columns if c.role in ("speed", "amplitude", "phase", "time")]
-    arrays = table.read([c.index for c in layout.columns], numeric=numeric)
+    numeric = [c.index for c in layout.columns if c.role != "probe"]  # order too: whole numbers
+    text = [layout.probe.index] if layout.probe is not None else []
+    arrays = table.read([c.index for c in layout.columns], numeric=numeric, text=text)
+    digest = _BackgroundSha256(data)  # overlaps the conversions below
     if len(arrays[layout.speed.index]) == 0:  # e.g. only empty lines after the header
         raise DataFormatError("the file has a header but no data rows", file=file)
-    samples = _samples(layout, arrays, file=file)
-    sources = [SourceFile(path=file, sha256=hashlib.sha256(data).hexdigest())]
+    samples, probe_names = _samples(layout, arrays, file=file)
+    sources = [SourceFile(path=file, sha256=digest.hexdigest())]
     if side is not None:
         sources.append(SourceFile(path=side.path, sha256=side.sha256))
     meta = RunMetadata(
@@ -196,15 +200,44 @@ def read_run(
         operating=side.operating if side else RunMetadata().operating,
         sources=tuple(sources),
     )
-    return Run(meta, samples)
+    # every rule of Run's own validation holds already (checked above, column by column,
+    # with file and row in the messages), so the table is not checked and copied again
+    return Run._from_checked(meta, samples, probe_names)
+
+
+class _BackgroundSha256:
+    """SHA-256 of ``data`` computed in a thread while the caller goes on (parsing).
+
+    hashlib releases the GIL while it hashes a large buffer, so the ~8 ms of a 15 MB file
+    overlap the parse instead of adding to it.
+    """
+
+    def __init__(self, data: pa.Buffer) -> None:
+        self._hash = hashlib.sha256()
+        self._thread = threading.Thread(target=self._hash.update, args=(data,), daemon=True)
+        self._thread.start()
+
+    def hexdigest(self) -> str:
+        self._thread.join()
+        return self._hash.hexdigest()
 
 
 # -- files -----------------------------------------------------------------------------
 
 
-def _read_bytes(path: str | os.PathLike, *, what: str) -> bytes:
+def _read_bytes(path: str | os.PathLike, *, what: str) -> pa.Buffer:
+    """The whole file, in a buffer of Arrow's memory pool.
+
+    The pool keeps its pages from one file to the next, so that reading many large files
+    in one process (a batch, a benchmark) does not fault in fresh memory for each; the
+    buffer is read by pyarrow, hashed by hashlib and searched by ``re`` without a copy.
+    """
     try:
-        return Path(path).read_bytes()
+        with open(path, "rb") as f:
+            size = os.fstat(f.fileno()).st_size
+            buf = pa.allocate_buffer(size)
+            n = f.readinto(memoryview(buf))
+        return buf if n == size else buf.slice(0, n)
     except FileNotFoundError:
         raise DataFormatError(f"{what} not found; check the path", file=str(path)) from None
     except IsADirectoryError:
@@ -227,9 +260,12 @@ def _find_sidecar(path: str | os.PathLike, sidecar: str | os.PathLike | None) ->
 class _CsvTable:
     """Header from the raw first line (so duplicates are seen), columns via pyarrow."""
 
-    def __init__(self, data: bytes, *, file: str) -> None:
+    def __init__(self, data: pa.Buffer, *, file: str) -> None:
         self.data, self.file = data, file
-        first = data.split(b"\n", 1)[0].rstrip(b"\r")
+        # the first line and a look past it, without copying the rest of the file
+        newline = _NEWLINE.search(data)
+        end = newline.start() if newline else -1
+        first = bytes(memoryview(data)[: end if end >= 0 else len(data)]).rstrip(b"\r")
         try:
             line = first.decode("utf-8-sig")
         except UnicodeDecodeError:
@@ -237,7 +273,7 @@ class _CsvTable:
                 "the header line is not UTF-8 text; save the file as UTF-8", file=file
             ) from None
         if not line.strip():
-            if not data.strip():
+            if not _has_text(data, 0):
                 raise DataFormatError(
                     "empty file: expected a header line naming the columns, then data rows",
                     file=file,
@@ -245,21 +281,28 @@ class _CsvTable:
             raise DataFormatError(
                 "the first line is blank; it must be the header naming the columns", file=file
             )
-        if not data.partition(b"\n")[2].strip():
+        if end < 0 or not _has_text(data, end + 1):
             raise DataFormatError("the file has a header but no data rows", file=file)
         self.delimiter = next((d for d in (",", "\t", ";") if d in line), ",")
         self.header = tuple(h.strip() for h in next(csv.reader([line], delimiter=self.delimiter)))
 
-    def read(self, indices: Sequence[int], *, numeric: Sequence[int] = ()) -> dict[int, pa.Array]:
+    def read(
+        self, indices: Sequence[int], *, numeric: Sequence[int] = (), text: Sequence[int] = ()
+    ) -> dict[int, pa.Array]:
         """Columns by index.  ``numeric`` columns are first parsed as float64 directly (the
         fast path); when any cell does not parse, every column is read as text instead so
-        that the caller can name the offending cell."""
+        that the caller can name the offending cell.  On the fast path ``text`` columns
+        (probe names: a few distinct values repeated) come dictionary-encoded, so that
+        they are trimmed and checked once per distinct value rather than once per row."""
         names = [f"c{i}" for i in range(len(self.header))]
         keep = [names[i] for i in indices]
         read_opts = pacsv.ReadOptions(column_names=names, skip_rows=1)
         parse_opts = pacsv.ParseOptions(delimiter=self.delimiter)
         if numeric:
-            types = {names[i]: (pa.float64() if i in numeric else pa.string()) for i in indices}
+            by_kind = {i: pa.float64() for i in numeric} | {
+                i: pa.dictionary(pa.int32(), pa.string()) for i in text
+            }
+            types = {names[i]: by_kind.get(i, pa.string()) for i in indices}
             tokens = sorted({t for m in MISSING_TOKENS for t in (m, m.upper(), m.capitalize())})
             fast = pacsv.ConvertOptions(include_columns=keep, column_types=types, null_values=tokens,
                                         strings_can_be_null=False)
@@ -325,9 +368,19 @@ class _CsvTable:
         )
 
 
+_NEWLINE = re.compile(rb"\n")
+#: A byte that ``bytes.strip`` would not remove (ASCII whitespace is `` \t\n\r\x0b\x0c``).
+_NOT_SPACE = re.compile(rb"[^ \t\n\r\x0b\x0c]")
+
+
+def _has_text(data: pa.Buffer, start: int) -> bool:
+    """Whether ``data[start:]`` holds anything but whitespace (no copy of the slice)."""
+    return _NOT_SPACE.search(data, start) is not None
+
+
 class _ParquetTable:
-    def __init__(self, data: bytes, *, file: str) -> None:
-        self.file = file
+    def __init__(self, data: pa.Buffer, *, file: str) -> None:
+        self.data, self.file = data, file
         try:
             self.pf = pq.ParquetFile(pa.BufferReader(data))
             self.header = tuple(str(n).strip() for n in self.pf.schema_arrow.names)
@@ -342,12 +395,25 @@ class _ParquetTable:
         if self.pf.metadata.num_rows == 0:
             raise DataFormatError("the file has columns but no data rows", file=file)
 
-    def read(self, indices: Sequence[int], *, numeric: Sequence[int] = ()) -> dict[int, pa.Array]:
-        """Columns by index (Parquet columns are typed already; ``numeric`` is not needed)."""
+    def read(
+        self, indices: Sequence[int], *, numeric: Sequence[int] = (), text: Sequence[int] = ()
+    ) -> dict[int, pa.Array]:
+        """Columns by index (Parquet columns are typed already; ``numeric`` is not needed).
+        ``text`` columns stored as strings are read dictionary-encoded, as from CSV."""
         del numeric
-        names = self.pf.schema_arrow.names
+        schema = self.pf.schema_arrow
+        names = schema.names
+        as_dictionary = [
+            names[i] for i in text
+            if pa.types.is_string(schema.types[i]) or pa.types.is_large_string(schema.types[i])
+        ]
         try:
-            table = self.pf.read(columns=[names[i] for i in indices])
+            pf = (
+                pq.ParquetFile(pa.BufferReader(self.data), read_dictionary=as_dictionary)
+                if as_dictionary
+                else self.pf
+            )
+            table = pf.read(columns=[names[i] for i in indices])
         except (pa.ArrowException, OSError, ValueError):
             raise DataFormatError(
                 "cannot read the Parquet data (truncated or corrupt); re-export the file",
@@ -550,6 +616,30 @@ def _first_bad_cast(arr: pa.Array) -> int:
     return lo
 
 
+def _column(n: int, dtype: type) -> NDArray:
+    """An uninitialised array of ``n`` values for a column of the samples, in Arrow's
+    memory pool.
+
+    numpy's allocator gives the pages of large arrays back to the system when they are
+    freed, so that each import of a large file faults in fresh memory for every column
+    (about 1 ms per 400,000 values on a virtual machine); Arrow's pool keeps its pages and
+    reuses them, as it does for the parsed file.  The array is an ordinary writable
+    numpy array.
+    """
+    kind = np.dtype(dtype)
+    return np.frombuffer(pa.allocate_buffer(n * kind.itemsize), dtype=kind)
+
+
+def _extremes(values: NDArray[np.float64]) -> tuple[float, float]:
+    """Smallest and largest value, NaN ignored (NaN, NaN when all are NaN).
+
+    Two reductions instead of a boolean mask per rule: the masks are built only when a
+    rule fails, to find the first offending row.
+    """
+    with np.errstate(invalid="ignore"):
+        return float(np.fmin.reduce(values)), float(np.fmax.reduce(values))
+
+
 def _fail_first(
     bad: NDArray[np.bool_], values: NDArray, message: str, col: _Column, file: str
 ) -> None:
@@ -562,47 +652,59 @@ def _fail_first(
 
 def _speed(arr: pa.Array, col: _Column, *, file: str) -> NDArray[np.float64]:
     v = _floats(arr, col, file=file)
-    bad = np.isinf(v) | (v <= 0)
-    _fail_first(
-        bad,
-        v,
-        "speed must be a positive finite number, found {value}; "
-        "remove rows at standstill or leave the cell empty",
-        col,
-        file,
-    )
-    return speed_to_rpm(v, unit=col.unit.unit)  # type: ignore[union-attr]
+    low, high = _extremes(v)
+    if low <= 0 or high == np.inf:
+        _fail_first(
+            np.isinf(v) | (v <= 0),
+            v,
+            "speed must be a positive finite number, found {value}; "
+            "remove rows at standstill or leave the cell empty",
+            col,
+            file,
+        )
+    return speed_to_rpm(v, unit=col.unit.unit, out=_column(v.size, np.float64))  # type: ignore[union-attr]
 
 
 def _amplitude(arr: pa.Array, col: _Column, *, file: str) -> NDArray[np.float64]:
     v = _floats(arr, col, file=file)
-    bad = np.isinf(v) | (v < 0)
-    _fail_first(
-        bad,
-        v,
-        "amplitude must be a finite number >= 0, found {value}; "
-        "a 1X amplitude is a magnitude, put its sign into the phase",
-        col,
-        file,
-    )
+    low, high = _extremes(v)
+    if low < 0 or high == np.inf:
+        _fail_first(
+            np.isinf(v) | (v < 0),
+            v,
+            "amplitude must be a finite number >= 0, found {value}; "
+            "a 1X amplitude is a magnitude, put its sign into the phase",
+            col,
+            file,
+        )
     unit = col.unit
-    return amplitude_to_um_pp(v, unit=unit.unit, definition=unit.qualifier)  # type: ignore[union-attr]
+    return amplitude_to_um_pp(  # type: ignore[union-attr]
+        v, unit=unit.unit, definition=unit.qualifier, out=_column(v.size, np.float64)
+    )
 
 
 def _phase(arr: pa.Array, col: _Column, *, file: str) -> NDArray[np.float64]:
     v = _floats(arr, col, file=file)
-    _fail_first(np.isinf(v), v, "phase must be finite, found {value}", col, file)
+    if np.isinf(_extremes(v)).any():
+        _fail_first(np.isinf(v), v, "phase must be finite, found {value}", col, file)
     unit = col.unit
-    return phase_to_lag_deg(v, unit=unit.unit, sense=unit.qualifier)  # type: ignore[union-attr]
+    return phase_to_lag_deg(  # type: ignore[union-attr]
+        v, unit=unit.unit, sense=unit.qualifier, out=_column(v.size, np.float64)
+    )
 
 
 def _time(arr: pa.Array, col: _Column, *, file: str) -> NDArray[np.float64]:
     v = _floats(arr, col, file=file)
-    nan = np.isnan(v)
-    if nan.all():
-        return v
-    _fail_first(np.isinf(v), v, "time must be finite, found {value}", col, file)
-    if nan.any():
+    out = _column(v.size, np.float64)
+    np.copyto(out, v)  # v may be a read-only view of the parsed column
+    low, high = _extremes(v)
+    if np.isnan(low):  # every cell empty: the file gives no time
+        return out
+    if np.isinf([low, high]).any():
+        _fail_first(np.isinf(v), v, "time must be finite, found {value}", col, file)
+    with np.errstate(over="ignore"):  # finite values here: the sum is NaN only with a NaN
+        nan = np.isnan(v) if np.isnan(np.add.reduce(v)) else None
+    if nan is not None and nan.any():
         i = int(np.argmax(nan))
         raise DataFormatError(
             "time_s is empty here but given elsewhere; the acquisition order needs a time "
@@ -611,11 +713,15 @@ def _time(arr: pa.Array, col: _Column, *, file: str) -> NDArray[np.float64]:
             column=col.source,
             row=i + 1,
         )
-    return v
+    return out
 
 
 def _order(arr: pa.Array, col: _Column, *, file: str) -> NDArray[np.int64]:
     v = _floats(arr, col, file=file)
+    out = _column(v.size, np.int64)
+    if (v == 1).all():  # the usual 1X-only record, without the general checks' temporaries
+        out.fill(1)
+        return out
     with np.errstate(invalid="ignore"):
         bad = ~np.isfinite(v) | (v < 1) | (v != np.round(v))
     if bad.any():
@@ -627,37 +733,63 @@ def _order(arr: pa.Array, col: _Column, *, file: str) -> NDArray[np.int64]:
             column=col.source,
             row=i + 1,
         )
-    return v.astype(np.int64)
+    np.copyto(out, v, casting="unsafe")  # whole numbers: the cast is exact
+    return out
 
 
-def _probe_names(arr: pa.Array, col: _Column, *, file: str) -> NDArray[np.object_]:
-    if pa.types.is_dictionary(arr.type):
+def _probe_codes(
+    arr: pa.Array, col: _Column, *, file: str
+) -> tuple[NDArray[np.intp], NDArray[np.object_]]:
+    """Probe name of every row as ``(codes, names)``: row ``i`` names ``names[codes[i]]``.
+
+    Names are trimmed of spaces and checked non-empty on the distinct values of the column
+    (its dictionary), not row by row; ``names`` holds each distinct trimmed name once, as
+    a Python string.
+    """
+    if pa.types.is_dictionary(arr.type) and not _is_text(arr.type.value_type):
         arr = arr.dictionary_decode()
-    if not (pa.types.is_string(arr.type) or pa.types.is_large_string(arr.type)):
-        try:
-            arr = pc.cast(arr, pa.string())
-        except pa.ArrowException:
+    if not pa.types.is_dictionary(arr.type):
+        if not _is_text(arr.type):
+            try:
+                arr = pc.cast(arr, pa.string())
+            except pa.ArrowException:
+                raise DataFormatError(
+                    f"probe names of type {arr.type} cannot be read; expected text",
+                    file=file,
+                    column=col.source,
+                ) from None
+        arr = pc.dictionary_encode(arr)
+    values = pc.utf8_trim_whitespace(arr.dictionary)
+    empty_value = pc.fill_null(pc.equal(values, ""), True).to_numpy(zero_copy_only=False)
+    indices = arr.indices
+    if indices.null_count or empty_value.any():
+        index = pc.fill_null(indices, 0).to_numpy(zero_copy_only=False)
+        empty = empty_value[index] | indices.is_null().to_numpy(zero_copy_only=False)
+        if empty.any():
             raise DataFormatError(
-                f"probe names of type {arr.type} cannot be read; expected text",
+                "empty probe name; every row of the long layout names its probe",
                 file=file,
                 column=col.source,
-            ) from None
-    arr = pc.utf8_trim_whitespace(arr)
-    empty = pc.fill_null(pc.equal(arr, ""), True).to_numpy(zero_copy_only=False)
-    if empty.any():
-        raise DataFormatError(
-            "empty probe name; every row of the long layout names its probe",
-            file=file,
-            column=col.source,
-            row=int(np.argmax(empty)) + 1,
-        )
-    # names via the dictionary of distinct values: one Python string per probe, not per row
-    encoded = pc.dictionary_encode(arr)
-    names = encoded.dictionary.to_numpy(zero_copy_only=False).astype(object)
-    return names[encoded.indices.to_numpy(zero_copy_only=False)]
+                row=int(np.argmax(empty)) + 1,
+            )
+    # values that differ only by spaces are one probe: number the trimmed values again
+    renumber, names = pd.factorize(values.to_numpy(zero_copy_only=False).astype(object))
+    codes = _column(len(indices), np.intp)
+    np.copyto(codes, indices.to_numpy(zero_copy_only=False))  # the parser's int32 indices
+    if not np.array_equal(renumber, np.arange(renumber.size)):
+        codes = renumber[codes]
+    return codes, names.astype(object)
 
 
-def _samples(layout: _Layout, arrays: Mapping[int, pa.Array], *, file: str) -> pd.DataFrame:
+def _is_text(kind: pa.DataType) -> bool:
+    return pa.types.is_string(kind) or pa.types.is_large_string(kind)
+
+
+def _samples(
+    layout: _Layout, arrays: Mapping[int, pa.Array], *, file: str
+) -> tuple[pd.DataFrame, NDArray[np.object_]]:
+    """The samples table (columns and dtypes of :data:`~runup.run.SAMPLE_COLUMNS`, in
+    acquisition order) and the distinct probe names in it."""
     n_rows = len(arrays[layout.speed.index])
     speed = _speed(arrays[layout.speed.index], layout.speed, file=file)
     time = (
@@ -665,15 +797,19 @@ def _samples(layout: _Layout, arrays: Mapping[int, pa.Array], *, file: str) -> p
         if layout.time is not None
         else np.full(n_rows, np.nan)
     )
-    rows = np.arange(1, n_rows + 1, dtype=np.int64)
+    rows = _column(n_rows, np.int64)
+    rows.fill(1)
+    np.cumsum(rows, out=rows)  # 1, 2, ..., n_rows in place (arange has no out argument)
     if layout.kind == "long":
         assert layout.probe and layout.amplitude and layout.phase
-        probe = _probe_names(arrays[layout.probe.index], layout.probe, file=file)
+        codes, names = _probe_codes(arrays[layout.probe.index], layout.probe, file=file)
         order = (
             _order(arrays[layout.order.index], layout.order, file=file)
             if layout.order is not None
-            else np.ones(n_rows, dtype=np.int64)
+            else _column(n_rows, np.int64)
         )
+        if layout.order is None:
+            order.fill(1)
         amp = _amplitude(arrays[layout.amplitude.index], layout.amplitude, file=file)
         phase = _phase(arrays[layout.phase.index], layout.phase, file=file)
     else:
@@ -684,50 +820,73 @@ def _samples(layout: _Layout, arrays: Mapping[int, pa.Array], *, file: str) -> p
         phase = np.column_stack(
             [_phase(arrays[p.index], p, file=file) for _, _, p in layout.pairs]
         ).ravel()
-        probe = np.tile(np.array([p for p, _, _ in layout.pairs], dtype=object), n_rows)
+        names = np.array([p for p, _, _ in layout.pairs], dtype=object)
+        codes = np.tile(np.arange(n_p), n_rows)
         order = np.ones(n_rows * n_p, dtype=np.int64)
         speed, time, rows = (np.repeat(x, n_p) for x in (speed, time, rows))
-    if layout.time is not None and np.isfinite(time).all():
+    # _time gives all NaN or all finite; and a stable sort of times already in order is
+    # the identity: skip it (the usual case)
+    if layout.time is not None and not np.isnan(time[0]) and np.any(time[1:] < time[:-1]):
         idx = np.argsort(time, kind="stable")
-        speed, probe, order, amp, phase, time, rows = (
-            x[idx] for x in (speed, probe, order, amp, phase, time, rows)
+        speed, codes, order, amp, phase, time, rows = (
+            x[idx] for x in (speed, codes, order, amp, phase, time, rows)
         )
-    samples = pd.DataFrame(
-        {
-            "speed_rpm": speed,
-            "probe": pd.Series(probe, dtype=object),
-            "order": order,
-            "amplitude_um_pp": amp,
-            "phase_lag_deg": phase,
-            "time_s": time,
-            "row": rows,
-        }
-    )
-    _check_counts(samples, layout, file=file)
-    return samples.astype(SAMPLE_COLUMNS)
+    _check_counts(codes, names, order, speed, amp, phase, layout, file=file)
+    columns = {
+        "speed_rpm": speed,
+        "probe": pd.Series(names[codes], dtype=object, copy=False),
+        "order": order,
+        "amplitude_um_pp": amp,
+        "phase_lag_deg": phase,
+        "time_s": time,
+        "row": rows,
+    }
+    # the arrays are this function's own, so the frame takes them as they are
+    return pd.DataFrame(columns, copy=False), names
 
 
-def _check_counts(samples: pd.DataFrame, layout: _Layout, *, file: str) -> None:
-    finite = (
-        np.isfinite(samples["speed_rpm"].to_numpy())
-        & np.isfinite(samples["amplitude_um_pp"].to_numpy())
-        & np.isfinite(samples["phase_lag_deg"].to_numpy())
-    )
-    codes, names = pd.factorize(samples["probe"].to_numpy(), sort=False)
-    order = samples["order"].to_numpy()
-    keys, first, inverse = np.unique(
-        codes * (int(order.max()) + 1) + order, return_index=True, return_inverse=True
-    )
-    counts = np.bincount(inverse.ravel(), weights=finite, minlength=keys.size)
+def _check_counts(
+    codes: NDArray[np.integer],
+    names: NDArray[np.object_],
+    order: NDArray[np.int64],
+    speed: NDArray[np.float64],
+    amp: NDArray[np.float64],
+    phase: NDArray[np.float64],
+    layout: _Layout,
+    *,
+    file: str,
+) -> None:
+    """Every probe and order has :data:`MIN_POINTS_PER_PROBE` finite samples, or the first
+    one short of them (in acquisition order) is reported."""
+    # a sum is finite only when every term is: the usual all-finite case needs no mask
+    with np.errstate(invalid="ignore", over="ignore"):  # an overflowing sum: masks below
+        sums_finite = all(np.isfinite(np.add.reduce(a)) for a in (speed, amp, phase))
+    if sums_finite:
+        finite = None
+    else:
+        finite = np.isfinite(speed) & np.isfinite(amp) & np.isfinite(phase)
+    max_order = int(order.max())
+    keys = codes if max_order == 1 else codes * np.int64(max_order + 1) + order
+    n_keys = int(keys.max()) + 1
+    if n_keys <= keys.size:  # the usual few probe/order keys: count them without sorting
+        rows_of = np.bincount(keys, minlength=n_keys)
+        n_finite = rows_of if finite is None else np.bincount(keys, weights=finite, minlength=n_keys)
+        if np.all((n_finite >= MIN_POINTS_PER_PROBE) | (rows_of == 0)):
+            return
+    if finite is None:
+        finite = np.ones(keys.size, dtype=bool)
+    keys_u, first, inverse = np.unique(keys, return_index=True, return_inverse=True)
+    counts = np.bincount(inverse.ravel(), weights=finite, minlength=keys_u.size)
     few = np.flatnonzero(counts < MIN_POINTS_PER_PROBE)
-    if few.size:
-        k = few[np.argmin(first[few])]  # first such probe/order in acquisition order
-        probe, order_k, count = names[codes[first[k]]], order[first[k]], int(counts[k])
-        amp_col = next((a.source for p, a, _ in layout.pairs if p == probe), None)
-        raise DataFormatError(
-            f"probe '{probe}' (order {order_k}) has {count} samples with finite speed, "
-            f"amplitude and phase; at least {MIN_POINTS_PER_PROBE} are needed. Check that "
-            "its columns hold data, or remove the probe from the file",
-            file=file,
-            column=amp_col,
-        )
+    if few.size == 0:
+        return
+    k = few[np.argmin(first[few])]  # first such probe/order in acquisition order
+    probe, order_k, count = names[codes[first[k]]], order[first[k]], int(counts[k])
+    amp_col = next((a.source for p, a, _ in layout.pairs if p == probe), None)
+    raise DataFormatError(
+        f"probe '{probe}' (order {order_k}) has {count} samples with finite speed, "
+        f"amplitude and phase; at least {MIN_POINTS_PER_PROBE} are needed. Check that "
+        "its columns hold data, or remove the probe from the file",
+        file=file,
+        column=amp_col,
+    )
