@@ -845,6 +845,18 @@ class _CurveJob:
 PARALLEL_MIN_ROWS = 50_000
 
 
+def _thread_budget() -> int:
+    """Threads this process may use: the CPUs it may run on, capped by ``OMP_NUM_THREADS``
+    when that is set (the convention of the math libraries; :mod:`runup.batch` sets it to 1
+    in its workers, whose processes are the parallelism there)."""
+    try:
+        cpus = len(os.sched_getaffinity(0))
+    except AttributeError:  # not on every platform
+        cpus = os.cpu_count() or 1
+    cap = os.environ.get("OMP_NUM_THREADS", "")
+    return max(1, min(cpus, int(cap))) if cap.isdigit() and int(cap) > 0 else max(1, cpus)
+
+
 def _map_curves(
     rows: _Rows, jobs: list[_CurveJob], options: _CurveOptions
 ) -> Iterator[tuple[list[Correction], list[str], Curve | None]]:
@@ -854,7 +866,7 @@ def _map_curves(
     exactly the results of running them one after the other; ``map`` returns them in job
     order and raises the first error in that order.
     """
-    workers = min(len(jobs), os.cpu_count() or 1)
+    workers = min(len(jobs), _thread_budget())
     if workers < 2 or sum(job.rows.size for job in jobs) < PARALLEL_MIN_ROWS:
         return (_condition_curve(rows, job, options) for job in jobs)
     with ThreadPoolExecutor(max_workers=workers) as pool:
