@@ -906,7 +906,7 @@ def _condition_curve(
                 f"sigmas from its neighbours (rows {_rows_text(point_rows)}).",
             ))
         if spike.any():
-            sp, cx, ct = sp[~spike], cx[~spike], ct[~spike]
+            sp, cx, ct, cnt = sp[~spike], cx[~spike], ct[~spike], cnt[~spike]
             noise = None
     if sp.size < options.min_points:
         corrections.append(Correction(
@@ -916,8 +916,10 @@ def _condition_curve(
         return corrections, [], None
     sr, warnings = _slow_roll(sp, cx, options.slow_roll, where, noise)
     response = cx if sr is None else cx - sr.vector_um_pp
+    # each point keeps how many rows it averages (duplicate speeds merged), so that noise
+    # scales downstream stay per sample
     return corrections, warnings, Curve(
-        probe, order_n, seg.index, seg.direction, sp, response, cx, ct, sr
+        probe, order_n, seg.index, seg.direction, sp, response, cx, ct, sr, cnt
     )
 
 

@@ -407,7 +407,8 @@ class Curve:
     sample_counts
         How many samples each point averages (default 1 each); identification averages
         points closer than its speed resolution and carries the counts, so that noise
-        scales and fit weights stay per sample (:mod:`runup.fit.binning`).
+        scales and fit weights stay per sample (:mod:`runup.fit.binning`); conditioning
+        sets it for points that merge rows of equal speed.
     """
 
     probe: str

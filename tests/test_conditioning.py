@@ -264,6 +264,8 @@ def test_duplicates_merge_as_vector_mean():
     assert_allclose(c.time_s[j], float(i), rtol=0)  # mean of two equal times (exact)
     (dup,) = kinds(cr, "duplicates_merged")
     assert sorted(dup.rows) == sorted([i + 1, 51]) and "1 duplicate" in dup.detail
+    # the merged point averages two rows (its noise variance is half a row's): counted
+    assert c.sample_counts[j] == 2 and c.sample_counts.sum() == 51
 
 
 def test_missing_rows_dropped_and_recorded():
