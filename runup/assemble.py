@@ -21,6 +21,7 @@ import numpy as np
 from .critical import CRITICALLY_DAMPED_AF, Critical, Interval, ProbeDetail, SplitBranch, SplitPair
 from .detect import AMPLITUDE_PROMINENCE_SIGMAS, Candidate, ModeCandidate
 from .estimators import EstimatorTable, compare_estimators
+from .fit.binning import resolution_labels
 from .fit.circle import CircleFit
 from .fit.half_power import HalfPower, half_power
 from .fit.modal import ModalFit
@@ -96,7 +97,11 @@ def _major_axis_details(start: Start, low: float, high: float, peak_rpm: float) 
         a, b = by_probe.get(pair.first.name), by_probe.get(pair.second.name)
         if a is None or b is None:
             continue
-        common, ia, ib = np.intersect1d(a.speed_rpm, b.speed_rpm, return_indices=True)
+        # points pair up by their 0.1 % speed bin: a merged point's mean speed depends on the
+        # rows it holds, which one dropped or despiked row on one probe changes
+        _, ia, ib = np.intersect1d(resolution_labels(a.speed_rpm), resolution_labels(b.speed_rpm),
+                                   return_indices=True)
+        common = 0.5 * (a.speed_rpm[ia] + b.speed_rpm[ib])
         sel = (common >= low) & (common <= high)
         if sel.sum() < 5:
             continue

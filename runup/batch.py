@@ -193,8 +193,9 @@ def _dask(paths: Sequence[str], options: BatchOptions, workers: int, address: st
     cluster = None
     try:
         if address is None:
-            cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
-                                   dashboard_address=None, host="127.0.0.1")
+            with _single_threaded_children():  # the worker processes inherit one math thread
+                cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
+                                       dashboard_address=None, host="127.0.0.1")
             client = Client(cluster)
         else:
             client = Client(address, timeout="10s")

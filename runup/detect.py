@@ -8,7 +8,8 @@ orientation may give little amplitude peak but a plain phase rise.  runup looks 
 
 *amplitude evidence*
     local maxima of ``|X|`` with a prominence (``scipy.signal.find_peaks``) of at least
-    ``k_amp`` times the noise scale ``sigma_i`` at the peak;
+    ``k_amp`` times the noise scale ``sigma_i`` of the points that form it (the largest of
+    the peak's and its two bases');
 *phase evidence*
     local maxima of the lag rise over a relative speed window,
     ``dphi(N) = phi(N (1 + h)) - phi(N (1 - h))`` with ``h = 0.15``, of at least 45 degrees,
@@ -129,7 +130,7 @@ def noise_scale(
     if x.size < 3:
         return math.nan
     d2 = np.abs(x[2:] - 2.0 * x[1:-1] + x[:-2])
-    if counts is None:
+    if counts is None or np.all(np.asarray(counts) == 1.0):  # single samples: the rule above
         return float(np.median(d2) / math.sqrt(6.0 * math.log(2.0)))
     c = np.asarray(counts, dtype=float)
     scale = np.sqrt(1.0 / c[2:] + 4.0 / c[1:-1] + 1.0 / c[:-2])
@@ -166,10 +167,12 @@ def find_candidates(curve: Curve) -> tuple[Candidate, ...]:
     amp = curve.amplitude_um_pp
     # noise scale of each point: a mean of c samples has 1/sqrt(c) of a sample's noise
     floor = np.maximum(sigma / np.sqrt(curve.sample_counts), max(1e-9 * float(amp.max()), 1e-12))
-    # amplitude evidence: prominence in units of the noise scale at the peak
+    # amplitude evidence: prominence in units of the noise scale of the points that form it,
+    # the peak and its two bases (the larger of their scales; sigma itself for single samples)
     peaks, props = find_peaks(amp, prominence=AMPLITUDE_PROMINENCE_SIGMAS * float(floor.min()))
-    strong = props["prominences"] >= AMPLITUDE_PROMINENCE_SIGMAS * floor[peaks]
-    peaks, prominences = peaks[strong], props["prominences"][strong]
+    scale = np.maximum(floor[peaks], np.maximum(floor[props["left_bases"]], floor[props["right_bases"]]))
+    strong = props["prominences"] >= AMPLITUDE_PROMINENCE_SIGMAS * scale
+    peaks, prominences, scale = peaks[strong], props["prominences"][strong], scale[strong]
     found: list[Candidate] = []
     p_speed, p_rise = _phase_rise(curve, floor)
 
@@ -184,7 +187,7 @@ def find_candidates(curve: Curve) -> tuple[Candidate, ...]:
             return float(np.interp(speed, p_speed[valid], p_rise[valid]))
         return float(np.nanmax(p_rise[near]))
 
-    for idx, prom in zip(peaks, prominences, strict=True):
+    for idx, prom, sigma_k in zip(peaks, prominences, scale, strict=True):
         s = float(curve.speed_rpm[idx])
         rise = rise_at(s)
         evidence: Evidence = "peak+phase" if rise >= PHASE_RISE_DEG else "peak"
@@ -197,7 +200,7 @@ def find_candidates(curve: Curve) -> tuple[Candidate, ...]:
         first = below[-1] + 1 if below.size else 0
         last = idx + above[0] if above.size else amp.size - 1
         found.append(
-            Candidate(curve.probe, curve.order, curve.segment, s, evidence, int(idx), float(prom / floor[idx]), rise,
+            Candidate(curve.probe, curve.order, curve.segment, s, evidence, int(idx), float(prom / sigma_k), rise,
                       width, int(last - first + 1))
         )
     # phase evidence: local maxima of the rise that are not near an amplitude peak

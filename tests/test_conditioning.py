@@ -520,7 +520,7 @@ def test_threads_do_not_change_the_result(monkeypatch):
     assert serial.corrections == threaded.corrections and serial.warnings == threaded.warnings
     for a, b in zip(serial.curves, threaded.curves, strict=True):
         assert a.key == b.key and a.slow_roll == b.slow_roll
-        for name in ("speed_rpm", "response_um_pp", "raw_response_um_pp", "time_s"):
+        for name in ("speed_rpm", "response_um_pp", "raw_response_um_pp", "time_s", "sample_counts"):
             np.testing.assert_array_equal(getattr(a, name), getattr(b, name))
 
 

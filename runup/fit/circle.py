@@ -132,6 +132,7 @@ def fit_circles(
     """
     p = np.asarray(points, dtype=complex)
     w = np.ones(p.shape) if valid is None else np.asarray(valid, dtype=float)
+    p = np.where(w > 0, p, 0.0)  # padding takes no part, whatever it holds
     count = w.sum(axis=1, keepdims=True)
     mean = (p * w).sum(axis=1, keepdims=True) / np.maximum(count, 1.0)
     x, y = (p - mean).real * w, (p - mean).imag * w

@@ -6,8 +6,10 @@ every bootstrap replicate.  Calling ``scipy.optimize.least_squares`` once per pr
 about a millisecond of Python overhead per call, far more than the arithmetic.  Here the
 problems of a batch share one vectorised iteration: residuals ``(B, m)``, Jacobians
 ``(B, m, p)``, normal equations ``(B, p, p)`` solved together, each problem keeping its own
-damping and its own convergence test, so each converges to the same minimum it would reach
-alone (tests compare with ``scipy.optimize.least_squares``).
+damping and its own convergence test, so that no problem's path depends on the others
+(tests compare with ``scipy.optimize.least_squares``; like any local method it can, from
+the same start, end in a different local minimum than scipy's trust-region path on a
+multimodal problem).
 
 The iteration is the damped Gauss–Newton method of Levenberg (1944) and Marquardt (1963)
 with the gain-ratio update of the damping parameter of Madsen, Nielsen & Tingleff,
@@ -113,14 +115,16 @@ def least_squares_batch(
     success = np.zeros(n_batch, dtype=bool)
     n_iter = 0
     eye = np.eye(n_par)
-    for n_iter in range(1, max_iter + 1):  # noqa: B007 (n_iter is reported)
+    for _ in range(max_iter):
         active = ~done
         if not active.any():
             break
+        n_iter += 1
         ja, ra, xa = jac[active], r[active], x[active]
         a = np.einsum("bmp,bmq->bpq", ja, ja)
         g = np.einsum("bmp,bm->bp", ja, ra)
-        d = np.maximum(scale[active], np.diagonal(a, axis1=1, axis2=2))
+        column = np.diagonal(a, axis1=1, axis2=2).copy()  # |J_i|^2 at this point
+        d = np.maximum(scale[active], column)
         scale[active] = d
         d_safe = np.where(d > 0, d, 1.0)
         # a parameter on a bound that the gradient pushes outward is held there for this
@@ -131,7 +135,8 @@ def least_squares_batch(
             a = a * free[:, :, None] * free[:, None, :] + held[:, :, None] * eye
             g = g * free
         # MINPACK's orthogonality test: |J_i^T r| <= gtol |J_i| |r| for every column i
-        small_g = np.max(np.abs(g) / np.sqrt(d_safe), axis=1) <= gtol * np.sqrt(2.0 * cost[active] + 1e-300)
+        norms = np.sqrt(np.where(column > 0, column, 1.0))
+        small_g = np.max(np.abs(g) / norms, axis=1) <= gtol * np.sqrt(2.0 * cost[active] + 1e-300)
         try:
             step = -np.linalg.solve(a + mu[active, None, None] * d_safe[:, None, :] * eye, g[..., None])[..., 0]
         except np.linalg.LinAlgError:
@@ -149,7 +154,8 @@ def least_squares_batch(
         accept = np.isfinite(cost_trial) & (actual > 0) & (rho > 0)
         idx = np.flatnonzero(active)
         small_x = np.linalg.norm(step, axis=1) <= xtol * (xtol + np.linalg.norm(xa, axis=1))
-        small_f = accept & (actual <= ftol * cost[active])
+        # scipy's ftol test: a small relative decrease on a step the model predicted well
+        small_f = accept & (actual <= ftol * cost[active]) & (rho > 0.25)
         # damping update (Madsen, Nielsen & Tingleff 2004, eq. 3.16 / Algorithm 3.16)
         factor = np.maximum(1.0 / 3.0, 1.0 - (2.0 * np.clip(rho, 0.0, 1.0) - 1.0) ** 3)
         mu_a, nu_a = mu[active], nu[active]

@@ -17,6 +17,7 @@ import csv
 import hashlib
 import os
 import re
+import stat
 import threading
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
@@ -234,10 +235,15 @@ def _read_bytes(path: str | os.PathLike, *, what: str) -> pa.Buffer:
     """
     try:
         with open(path, "rb") as f:
-            size = os.fstat(f.fileno()).st_size
-            buf = pa.allocate_buffer(size)
+            info = os.fstat(f.fileno())
+            if not stat.S_ISREG(info.st_mode):  # a pipe or device: its size is not known
+                return pa.py_buffer(f.read())
+            buf = pa.allocate_buffer(info.st_size)
             n = f.readinto(memoryview(buf))
-        return buf if n == size else buf.slice(0, n)
+            rest = f.read()  # a file still growing while it is read: take what follows too
+        if rest:
+            return pa.py_buffer(bytes(memoryview(buf)[:n]) + rest)
+        return buf if n == info.st_size else buf.slice(0, n)
     except FileNotFoundError:
         raise DataFormatError(f"{what} not found; check the path", file=str(path)) from None
     except IsADirectoryError:
