@@ -459,7 +459,7 @@ def test_pointwise_noise_scale_equals_scipy_median_filter():
     (mode "nearest", 21 points), ties and curve ends included."""
     from scipy.ndimage import median_filter
 
-    from runup.conditioning import _RAYLEIGH_MEDIAN, _NoiseScale
+    from runup.conditioning.despike import _RAYLEIGH_MEDIAN, _NoiseScale
 
     rng = np.random.default_rng(9)
     for n in (21, 22, 57, 400):
@@ -478,7 +478,7 @@ def test_despiking_scores_only_candidates_but_finds_the_same_spikes(seed):
     flags exactly the points find_spikes flags, with the same scores there, and returns the
     noise sigma of the documented formula: median|d| / sqrt(2 ln 2) / sqrt(1.5) (Rayleigh
     median; interpolation residual of evenly spaced points)."""
-    from runup.conditioning import _interpolation_residual, _spikes, find_spikes
+    from runup.conditioning.despike import _interpolation_residual, _spikes, find_spikes
 
     rng = np.random.default_rng(seed)
     n = int(rng.integers(30, 3000))
