@@ -110,11 +110,6 @@ def cold_seconds(kind: str, path: Path, repeat: int, timeout_s: float) -> tuple[
     return best, True, found
 
 
-def identify_seconds(path: Path, repeat: int, timeout_s: float) -> tuple[float, bool, list]:
-    """:func:`cold_seconds` of ``identify``."""
-    return cold_seconds("identify", path, repeat, timeout_s)
-
-
 def scaling(folder: Path, n_probes: int, seed: int, sizes: tuple[int, ...], timeout_s: float) -> None:
     """Identify time against points per probe, and the fitted growth exponent."""
     print("\nscaling of identify (CSV, best of 1):")
@@ -122,7 +117,7 @@ def scaling(folder: Path, n_probes: int, seed: int, sizes: tuple[int, ...], time
     for n in sizes:
         csv, _ = write_run(folder, n, n_probes, seed)
         t_pd = best_of(lambda p=csv: pd.read_csv(p), 3)
-        t_id, done, _ = identify_seconds(csv, 1, timeout_s)
+        t_id, done, _ = cold_seconds("identify", csv, 1, timeout_s)
         mark = "" if done else "> "
         print(f"  {n:>7} points/probe: pandas read {t_pd:.3f} s, identify {mark}{t_id:.2f} s, "
               f"ratio {mark}{t_id / t_pd:.0f}")

@@ -40,22 +40,20 @@ MAX_FIT_POINTS = 300
 SPEED_RESOLUTION = 1e-3
 
 
-def _means(
-    idx: NDArray[np.intp], n_bins: int, speed: NDArray, arrays: tuple[NDArray, ...], counts: NDArray
+def _run_means(
+    label: NDArray[np.integer], speed: NDArray, arrays: tuple[NDArray, ...], counts: NDArray
 ) -> tuple[NDArray, tuple[NDArray, ...], NDArray]:
-    """Count-weighted means per bin label ``idx`` (0..n_bins-1); empty bins skipped."""
-    total = np.bincount(idx, weights=counts, minlength=n_bins)
-    keep = total > 0
-    total = total[keep]
+    """Count-weighted means of the runs of equal ``label`` (non-decreasing along an
+    increasing curve, so every bin is a run of consecutive points)."""
+    starts = np.flatnonzero(np.concatenate(([True], label[1:] != label[:-1])))
+    c = np.asarray(counts, dtype=float)
+    total = np.add.reduceat(c, starts)
+    weighted = not np.all(c == 1.0)
 
     def mean(v: NDArray) -> NDArray:
-        if np.iscomplexobj(v):
-            re = np.bincount(idx, weights=v.real * counts, minlength=n_bins)[keep]
-            im = np.bincount(idx, weights=v.imag * counts, minlength=n_bins)[keep]
-            return (re + 1j * im) / total
-        return np.bincount(idx, weights=v * counts, minlength=n_bins)[keep] / total
+        return np.add.reduceat(v * c if weighted else v, starts) / total
 
-    return mean(speed), tuple(mean(a) for a in arrays), total
+    return mean(speed), tuple(mean(np.asarray(v)) for v in arrays), total
 
 
 def bin_curve(
@@ -83,7 +81,7 @@ def bin_curve(
         return speed, x, c
     edges = np.linspace(speed[0], speed[-1], max_points + 1)
     idx = np.clip(np.searchsorted(edges, speed, side="right") - 1, 0, max_points - 1)
-    mean_speed, (mean_x,), total = _means(idx, max_points, speed, (x,), c)
+    mean_speed, (mean_x,), total = _run_means(idx, speed, (x,), c)
     return mean_speed, mean_x, total
 
 
@@ -126,13 +124,4 @@ def merge_within_resolution(
     label = resolution_labels(speed, resolution=resolution)
     if speed.size < 2 or np.all(label[1:] != label[:-1]):
         return None
-    starts = np.flatnonzero(np.concatenate(([True], label[1:] != label[:-1])))
-    c = np.asarray(counts, dtype=float)
-    total = np.add.reduceat(c, starts)
-
-    weighted = not np.all(c == 1.0)
-
-    def mean(v: NDArray) -> NDArray:  # bins are runs of consecutive points: reduceat
-        return np.add.reduceat(v * c if weighted else v, starts) / total
-
-    return mean(speed), tuple(mean(np.asarray(a)) for a in arrays), total
+    return _run_means(label, speed, arrays, counts)

@@ -15,8 +15,8 @@ The iteration is the damped Gauss–Newton method of Levenberg (1944) and Marqua
 with the gain-ratio update of the damping parameter of Madsen, Nielsen & Tingleff,
 *Methods for Non-Linear Least Squares Problems*, 2nd ed., 2004, Algorithm 3.16, and Moré's
 scale-invariant damping ``mu * diag(J^T J)`` (running maximum of the diagonal; Moré, "The
-Levenberg–Marquardt algorithm: implementation and theory", Lecture Notes in Mathematics
-630, 1978).  Simple bounds are kept by projection: a parameter on a bound whose gradient
+Levenberg–Marquardt algorithm: implementation and theory", in G. A. Watson (ed.),
+*Numerical Analysis*, Springer, 1978, pp. 105–116).  Simple bounds are kept by projection: a parameter on a bound whose gradient
 points out of the box is held for the step, the others solve the reduced system, and each
 trial point is projected onto the box (the gain ratio is computed for the projected step;
 projected Levenberg–Marquardt, Kanzow, Yamashita & Fukushima, J. Comput. Appl. Math. 172,
