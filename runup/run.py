@@ -24,6 +24,10 @@ from numpy.typing import NDArray
 from .errors import DataFormatError
 from .units import amplitude_of, phase_lag_deg_of
 
+#: pandas copies a shared column before changing it (copy-on-write), always from pandas 3;
+#: :meth:`Run._probe_numbering` relies on it and is off with older pandas.
+_COPY_ON_WRITE = int(pd.__version__.split(".")[0]) >= 3
+
 __all__ = [
     "SAMPLE_COLUMNS",
     "Probe",
@@ -227,7 +231,12 @@ class Run:
 
     @classmethod
     def _from_checked(
-        cls, metadata: RunMetadata, samples: pd.DataFrame, probe_names: Iterable[object]
+        cls,
+        metadata: RunMetadata,
+        samples: pd.DataFrame,
+        probe_names: Iterable[object],
+        *,
+        probe_codes: NDArray[np.intp] | None = None,
     ) -> Run:
         """A Run of samples its importer has built and checked already (private).
 
@@ -236,6 +245,11 @@ class Run:
         ``probe_names`` are its distinct probe names.  Such a table is kept as it is, not
         copied and checked again (some 10 ms for 400,000 rows); only the
         probe definitions are completed.  Any other table goes through ``__post_init__``.
+
+        ``probe_codes`` (optional) numbers the probe of every row, ``samples["probe"][i] ==
+        probe_names[probe_codes[i]]``, with distinct ``probe_names``; conditioning then
+        groups rows by these integers instead of hashing every name again (see
+        :meth:`_probe_numbering`).
         """
         shaped = (
             list(samples.columns) == list(SAMPLE_COLUMNS)
@@ -247,7 +261,44 @@ class Run:
         run = object.__new__(cls)  # frozen dataclass: set the fields, skipping __init__
         object.__setattr__(run, "metadata", _with_probes(metadata, probe_names))
         object.__setattr__(run, "samples", samples)
+        if probe_codes is not None and _COPY_ON_WRITE:
+            names = np.asarray(list(probe_names), dtype=object)
+            if len(probe_codes) == len(samples) and len(set(names.tolist())) == names.size:
+                # the probe column as it is now: holding it makes pandas copy the column
+                # before any later change (copy-on-write), so an unchanged buffer in
+                # samples["probe"] means unchanged names
+                object.__setattr__(run, "_probe_numbering_cache", (samples["probe"], probe_codes, names))
         return run
+
+    def __getstate__(self) -> dict[str, object]:
+        # a copy (pickle, deepcopy) leaves the importer's probe numbering behind: the
+        # copied table's buffers are no longer tied to it by copy-on-write
+        return {k: v for k, v in self.__dict__.items() if k != "_probe_numbering_cache"}
+
+    def _probe_numbering(self) -> tuple[NDArray[np.intp], NDArray[np.object_]] | None:
+        """``(codes, names)`` with ``samples["probe"][i] == names[codes[i]]`` for every row,
+        when the importer's numbering still describes the table (private); else ``None``.
+
+        From pandas 3 every change to a DataFrame column that another object still
+        refers to copies the column first (copy-on-write, always on), and the arrays a
+        DataFrame hands out are read-only.  The Run keeps the probe column it was built
+        with, so while ``samples["probe"]`` still holds that very buffer (same address,
+        length and stride) its values are the importer's; any edit (``loc`` assignment,
+        a replaced column, rows dropped or reordered in place) gives it a new buffer, and
+        then ``None`` (the caller numbers the names itself).
+        """
+        cached = self.__dict__.get("_probe_numbering_cache")
+        if cached is None:
+            return None
+        column, codes, names = cached
+        now = self.samples["probe"].to_numpy()
+        then = column.to_numpy()
+        same = (
+            now.shape == then.shape
+            and now.strides == then.strides
+            and now.__array_interface__["data"][0] == then.__array_interface__["data"][0]
+        )
+        return (codes, names) if same else None
 
     @property
     def probe_names(self) -> tuple[str, ...]:

@@ -546,3 +546,34 @@ def test_infinite_phase_is_not_a_missing_value():
     with np.errstate(invalid="ignore"):  # exp(-1j * inf) is NaN, with numpy's warning
         cr = condition(Run(RunMetadata(), df), slow_roll="off", despike=False)
     assert kinds(cr, "missing_dropped") == []
+
+
+def _same_conditioning(a, b):
+    assert a.corrections == b.corrections and a.warnings == b.warnings and a.segments == b.segments
+    assert [c.key for c in a.curves] == [c.key for c in b.curves]
+    for x, y in zip(a.curves, b.curves, strict=True):
+        for name in ("speed_rpm", "response_um_pp", "raw_response_um_pp", "time_s", "sample_counts"):
+            np.testing.assert_array_equal(getattr(x, name), getattr(y, name))
+
+
+@pytest.mark.skipif(int(pd.__version__.split(".")[0]) < 3, reason="needs pandas copy-on-write")
+def test_importers_probe_numbering_gives_the_same_result_and_follows_edits():
+    """Conditioning an imported Run groups rows by the importer's probe codes; the result
+    is the one the names themselves give (pandas.factorize), also with rows out of time
+    order and missing values, and an edit of the probe column after import is seen."""
+    rng = np.random.default_rng(5)
+    speed = np.r_[np.linspace(300.0, 6000.0, 400), np.linspace(6000.0, 400.0, 300)]
+    vectors = {p: jeffcott(speed) * (1 + k) + RUNOUT + noise(rng, speed.size, 0.05) for k, p in enumerate("CAB")}
+    plain = make_run(speed, vectors, time_s=np.arange(speed.size) * 0.1).samples.astype({"probe": object})
+    plain.loc[[0, 4, 50], "amplitude_um_pp"] = np.nan  # the first rows of probes C and B missing
+    shuffled = plain.iloc[rng.permutation(len(plain))].reset_index(drop=True)  # time out of order
+    for df in (plain, shuffled):
+        names = np.array(["A", "B", "C"], dtype=object)
+        codes = np.searchsorted(names, df["probe"].to_numpy().astype(str))
+        fast = Run._from_checked(RunMetadata(), df.copy(), names, probe_codes=codes)
+        assert fast._probe_numbering() is not None
+        _same_conditioning(condition(fast), condition(Run(RunMetadata(), df.copy())))
+        # an edit after import: the numbering no longer holds and the edit counts
+        fast.samples.loc[fast.samples["probe"] == "B", "probe"] = "D"
+        assert fast._probe_numbering() is None
+        assert {c.probe for c in condition(fast).curves} == {"A", "C", "D"}

@@ -121,15 +121,31 @@ def _missing(df: pd.DataFrame) -> tuple[NDArray[np.bool_] | None, list[Correctio
     return bad, corrections
 
 
-def _valid_rows(df: pd.DataFrame, bad: NDArray[np.bool_] | None) -> _Rows:
+def _valid_rows(
+    df: pd.DataFrame,
+    bad: NDArray[np.bool_] | None,
+    numbering: tuple[NDArray[np.intp], NDArray[np.object_]] | None = None,
+) -> _Rows:
     """The rows of ``df`` not flagged ``bad``, as arrays (views of ``df`` when ``bad`` is
-    ``None``)."""
-    columns = ("speed_rpm", "probe", "order", "amplitude_um_pp", "phase_lag_deg", "time_s", "row")
+    ``None``).
+
+    Probes are numbered in order of first appearance (``pandas.factorize``).  With
+    ``numbering`` (``(codes, names)``, row ``i`` of ``df`` naming ``names[codes[i]]``, names
+    distinct) the integers are factorized instead of the names: names and integers are
+    one to one, so the numbering is the same, without hashing every name.
+    """
+    columns = ("speed_rpm", "order", "amplitude_um_pp", "phase_lag_deg", "time_s", "row")
     keep = None if bad is None else ~bad
-    speed, probe, order, amp, phase, time, row = (
+    speed, order, amp, phase, time, row = (
         df[c].to_numpy() if keep is None else df[c].to_numpy()[keep] for c in columns
     )
-    codes, names = pd.factorize(probe)
+    if numbering is None:
+        probe = df["probe"].to_numpy()
+        codes, names = pd.factorize(probe if keep is None else probe[keep])
+    else:
+        all_codes, all_names = numbering
+        codes, first = pd.factorize(all_codes if keep is None else all_codes[keep])
+        names = all_names[first]
     return _Rows(speed, codes, names, order, amp, phase, time, row)
 
 
@@ -161,10 +177,13 @@ def _segments(
         members = np.flatnonzero(s_label == k)
         sp = s_speed[members]
         direction = {1: "startup", -1: "coastdown"}.get(sign, default_direction)
-        n_distinct = np.unique(sp).size
         span = float(np.ptp(sp))
-        if n_distinct < min_points or span < MIN_SEGMENT_SPAN_FRACTION * record_range:
-            dropped_rows = rows.row[(s_label == k)[sid]]
+        if (
+            _distinct_at_least(sp, min_points) < min_points
+            or span < MIN_SEGMENT_SPAN_FRACTION * record_range
+        ):
+            n_distinct = np.unique(sp).size
+            dropped_rows = rows.row[np.repeat(s_label == k, count)]
             corrections.append(Correction(
                 "segment_dropped", None, None, None, None, tuple(dropped_rows.tolist()),
                 f"{direction} segment {sp[0]:.0f}-{sp[-1]:.0f} rpm dropped: {n_distinct} "
@@ -184,7 +203,19 @@ def _segments(
         segments.append(Segment(
             len(segments), direction, float(sp[0]), float(sp[-1]), int(rows_per_label[k]), rate,
         ))
-    return new_index[s_label][sid], tuple(segments), corrections
+    # rows of one sample are consecutive (sid counts up), so repeating each sample's label
+    # by its row count labels the rows, as new_index[s_label][sid] would
+    return np.repeat(new_index[s_label], count), tuple(segments), corrections
+
+
+def _distinct_at_least(values: NDArray[np.float64], n: int) -> int:
+    """The number of distinct ``values`` if it is below ``n``, else some number >= ``n``.
+
+    The first ``4 n`` values usually hold ``n`` distinct ones already, which spares the
+    sort of the whole array; otherwise all values are counted.
+    """
+    head = np.unique(values[: 4 * n]).size
+    return head if head >= n else np.unique(values).size
 
 
 def _curve_rows(
@@ -251,17 +282,20 @@ def _points(
     new_point[1:] = speed[1:] != speed[:-1]
     starts = np.flatnonzero(new_point)
     counts = np.diff(np.append(starts, speed.size))
+    if starts.size == speed.size:  # no two rows share a speed (the caller's own arrays)
+        return speed, x, time, counts
     return speed[starts], _point_means(x, starts, counts), _point_means(time, starts, counts), counts
 
 
 def _point_means(values: NDArray, starts: NDArray[np.intp], counts: NDArray[np.int64]) -> NDArray:
     """Mean of the rows of each point: ``add.reduceat(values, starts) / counts``.
 
-    When every point is a single row the sums are the values themselves, so the
-    reduction is skipped; the division is kept so that the result is the same bits.
+    When every point is a single row the means are the values themselves (``v / 1 == v``
+    exactly in IEEE arithmetic), so ``values`` is returned as it is: the caller passes
+    arrays of its own.
     """
     if starts.size == values.size:
-        return values / counts
+        return values
     return np.add.reduceat(values, starts) / counts if starts.size else values[:0]
 
 
@@ -459,11 +493,15 @@ def condition(
     """
     _check_options(slow_roll, spike_threshold, min_points)
     df = run.samples
+    numbering = run._probe_numbering()  # the importer's probe codes, when still valid
     time_all = df["time_s"].to_numpy()
     if _all_finite(time_all) and np.any(time_all[1:] < time_all[:-1]):
-        df = df.iloc[np.argsort(time_all, kind="stable")].reset_index(drop=True)
+        by_time = np.argsort(time_all, kind="stable")
+        df = df.iloc[by_time].reset_index(drop=True)
+        if numbering is not None:
+            numbering = (numbering[0][by_time], numbering[1])
     bad, corrections = _missing(df)
-    valid = _valid_rows(df, bad)
+    valid = _valid_rows(df, bad, numbering)
     if valid.speed.size == 0:
         raise DataFormatError("no row has a speed, amplitude and phase; nothing to condition")
     tol = _check_tolerance(valid.speed, segment_tolerance_rpm)

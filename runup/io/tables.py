@@ -188,7 +188,7 @@ def read_run(
     digest = _BackgroundSha256(data)  # overlaps the conversions below
     if len(arrays[layout.speed.index]) == 0:  # e.g. only empty lines after the header
         raise DataFormatError("the file has a header but no data rows", file=file)
-    samples, probe_names = _samples(layout, arrays, file=file)
+    samples, probe_codes, probe_names = _samples(layout, arrays, file=file)
     sources = [SourceFile(path=file, sha256=digest.hexdigest())]
     if side is not None:
         sources.append(SourceFile(path=side.path, sha256=side.sha256))
@@ -203,7 +203,7 @@ def read_run(
     )
     # every rule of Run's own validation holds already (checked above, column by column,
     # with file and row in the messages), so the table is not checked and copied again
-    return Run._from_checked(meta, samples, probe_names)
+    return Run._from_checked(meta, samples, probe_names, probe_codes=probe_codes)
 
 
 class _BackgroundSha256:
@@ -793,9 +793,10 @@ def _is_text(kind: pa.DataType) -> bool:
 
 def _samples(
     layout: _Layout, arrays: Mapping[int, pa.Array], *, file: str
-) -> tuple[pd.DataFrame, NDArray[np.object_]]:
+) -> tuple[pd.DataFrame, NDArray[np.intp], NDArray[np.object_]]:
     """The samples table (columns and dtypes of :data:`~runup.run.SAMPLE_COLUMNS`, in
-    acquisition order) and the distinct probe names in it."""
+    acquisition order), the probe code of each row and the distinct probe names in it
+    (row ``i`` names ``names[codes[i]]``)."""
     n_rows = len(arrays[layout.speed.index])
     speed = _speed(arrays[layout.speed.index], layout.speed, file=file)
     time = (
@@ -848,7 +849,7 @@ def _samples(
         "row": rows,
     }
     # the arrays are this function's own, so the frame takes them as they are
-    return pd.DataFrame(columns, copy=False), names
+    return pd.DataFrame(columns, copy=False), codes, names
 
 
 def _check_counts(
