@@ -277,26 +277,18 @@ def _points(
     speed: NDArray[np.float64], x: NDArray[np.complex128], time: NDArray[np.float64]
 ) -> tuple[NDArray[np.float64], NDArray[np.complex128], NDArray[np.float64], NDArray[np.int64]]:
     """Merge the rows of equal speed of one curve (sorted by speed): the speeds, mean
-    vectors and mean times of its points and the rows in each."""
+    vectors and mean times of its points and the rows in each.
+
+    When no two rows share a speed every mean is its one row (``v / 1 == v`` exactly in
+    IEEE arithmetic), so the arrays are returned as they are: the caller passes its own.
+    """
     new_point = np.ones(speed.size, dtype=bool)
     new_point[1:] = speed[1:] != speed[:-1]
     starts = np.flatnonzero(new_point)
     counts = np.diff(np.append(starts, speed.size))
-    if starts.size == speed.size:  # no two rows share a speed (the caller's own arrays)
+    if starts.size == speed.size:
         return speed, x, time, counts
-    return speed[starts], _point_means(x, starts, counts), _point_means(time, starts, counts), counts
-
-
-def _point_means(values: NDArray, starts: NDArray[np.intp], counts: NDArray[np.int64]) -> NDArray:
-    """Mean of the rows of each point: ``add.reduceat(values, starts) / counts``.
-
-    When every point is a single row the means are the values themselves (``v / 1 == v``
-    exactly in IEEE arithmetic), so ``values`` is returned as it is: the caller passes
-    arrays of its own.
-    """
-    if starts.size == values.size:
-        return values
-    return np.add.reduceat(values, starts) / counts if starts.size else values[:0]
+    return speed[starts], np.add.reduceat(x, starts) / counts, np.add.reduceat(time, starts) / counts, counts
 
 
 @dataclass(frozen=True)
